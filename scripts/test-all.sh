@@ -1,0 +1,23 @@
+#!/usr/bin/env bash
+# Installs everything the test suite needs on a fresh machine, then runs it.
+# The README's test command and .ci/run both call this script.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+
+PNPM="npx -y pnpm@12.4.2"
+
+# Debian packages used by tests (compilers for export parity, a browser for reports,
+# a Redis server for the distributed sweep). Installed only when missing and when root.
+need=()
+command -v gcc >/dev/null 2>&1 || need+=(gcc)
+if [ "${#need[@]}" -gt 0 ]; then
+  if [ "$(id -u)" = "0" ]; then
+    apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq "${need[@]}"
+  else
+    echo "test-all: missing ${need[*]}; install them (Debian: apt-get install ${need[*]})" >&2
+  fi
+fi
+
+export ONNXRUNTIME_NODE_INSTALL=skip
+$PNPM install --frozen-lockfile
+$PNPM test
