@@ -1,0 +1,117 @@
+/**
+ * Batched 2-D real FFT on a doubly periodic grid, built on the 1-D transforms of `fft.ts`.
+ *
+ * Grid and layouts (C = number of fields in the batch, e.g. fields x copies):
+ *   physical  [ny][C][nx]   value of field c at grid point (x_i, y_j) at (j*C + c)*nx + i
+ *   spectral  [nx][C][nky]  coefficient (mx, my) of field c at (ix*C + c)*nky + my,
+ *             nky = ny/2 + 1, my = 0..ny/2 (half spectrum in y: the other half is the
+ *             complex conjugate), ix = 0..nx-1 in FFT order (mx = ix for ix <= nx/2,
+ *             ix - nx above).
+ * Real and imaginary parts are separate arrays of the same layout.
+ *
+ * Conventions (those of `fft.ts`): forward unnormalised,
+ *   F(mx, my) = sum_{i,j} f(i, j) exp(-2 pi i (mx i / nx + my j / ny)),
+ * inverse scaled by 1/(nx ny), so inverse(forward(f)) = f. Grid point (i, j) sits at
+ * x = i Lx / nx, y = j Ly / ny; physical wavenumbers are kx = 2 pi mx / Lx, ky = 2 pi my / Ly.
+ * Parseval: sum_{i,j} f^2 = (1/(nx ny)) sum over the full spectrum |F|^2, where in the
+ * half spectrum the entries 0 < my < ny/2 count twice.
+ *
+ * Algorithm: a real transform along y (the slow physical index, so the batch of nx*C
+ * lines is contiguous and the batch loop innermost), a blocked transpose of the half
+ * spectrum to [nx][C][nky], then a complex transform along x with batch C*nky. The
+ * inverse runs the same steps backwards. Work arrays are allocated once per field count.
+ */
+import { ComplexFft, RealFft } from './fft';
+
+export class Fft2 {
+  readonly nx: number;
+  readonly ny: number;
+  /** ny/2 + 1 half-spectrum entries in y. */
+  readonly nky: number;
+  private readonly rfft: RealFft;
+  private readonly cfft: ComplexFft;
+  private tRe: Float64Array = new Float64Array(0);
+  private tIm: Float64Array = new Float64Array(0);
+
+  constructor(nx: number, ny: number) {
+    this.cfft = new ComplexFft(nx);
+    this.rfft = new RealFft(ny);
+    this.nx = nx;
+    this.ny = ny;
+    this.nky = ny / 2 + 1;
+  }
+
+  /** Entries of one field's physical array (nx ny) and of one field's half spectrum (nx nky). */
+  get physicalSize(): number {
+    return this.nx * this.ny;
+  }
+  get spectralSize(): number {
+    return this.nx * this.nky;
+  }
+
+  private work(fields: number): void {
+    const need = this.nky * fields * this.nx;
+    if (this.tRe.length < need) {
+      this.tRe = new Float64Array(need);
+      this.tIm = new Float64Array(need);
+    }
+  }
+
+  private check(phys: Float64Array, re: Float64Array, im: Float64Array, fields: number): void {
+    if (!Number.isInteger(fields) || fields < 1) throw new Error(`Fft2: fields must be an integer >= 1, got ${fields}`);
+    const np = this.nx * this.ny * fields;
+    const ns = this.nx * this.nky * fields;
+    if (phys.length < np) throw new Error(`Fft2: physical array too short: need ${np} (${this.ny}x${fields}x${this.nx}), got ${phys.length}`);
+    if (re.length < ns || im.length < ns) {
+      throw new Error(`Fft2: spectral arrays too short: need ${ns} (${this.nx}x${fields}x${this.nky}), got re ${re.length}, im ${im.length}`);
+    }
+  }
+
+  /** Half spectrum [nx][C][nky] of `fields` real fields stored [ny][C][nx]. `phys` is not modified. */
+  forward(phys: Float64Array, re: Float64Array, im: Float64Array, fields = 1): void {
+    this.check(phys, re, im, fields);
+    this.work(fields);
+    const { nx, nky } = this;
+    const tRe = this.tRe;
+    const tIm = this.tIm;
+    this.rfft.forward(phys, tRe, tIm, nx * fields); // [nky][C][nx]
+    // Transpose [nky][C][nx] -> [nx][C][nky].
+    for (let c = 0; c < fields; c++) {
+      for (let ky = 0; ky < nky; ky++) {
+        let s = (ky * fields + c) * nx;
+        let d = c * nky + ky;
+        const dStep = fields * nky;
+        for (let ix = 0; ix < nx; ix++, s++, d += dStep) {
+          re[d] = tRe[s]!;
+          im[d] = tIm[s]!;
+        }
+      }
+    }
+    this.cfft.forward(re, im, fields * nky);
+  }
+
+  /**
+   * Real fields [ny][C][nx] from half spectra [nx][C][nky], scaled by 1/(nx ny).
+   * Destroys `re` and `im` (the x transform runs in place on them).
+   */
+  inverseInPlace(re: Float64Array, im: Float64Array, phys: Float64Array, fields = 1): void {
+    this.check(phys, re, im, fields);
+    this.work(fields);
+    const { nx, nky } = this;
+    const tRe = this.tRe;
+    const tIm = this.tIm;
+    this.cfft.inverse(re, im, fields * nky);
+    for (let c = 0; c < fields; c++) {
+      for (let ky = 0; ky < nky; ky++) {
+        let d = (ky * fields + c) * nx;
+        let s = c * nky + ky;
+        const sStep = fields * nky;
+        for (let ix = 0; ix < nx; ix++, d++, s += sStep) {
+          tRe[d] = re[s]!;
+          tIm[d] = im[s]!;
+        }
+      }
+    }
+    this.rfft.inverse(tRe, tIm, phys, nx * fields);
+  }
+}
