@@ -1,12 +1,13 @@
 /**
  * Batched 2-D real FFT on a doubly periodic grid, built on the 1-D transforms of `fft.ts`.
  *
- * Grid and layouts (C = number of fields in the batch, e.g. fields x copies):
- *   physical  [ny][C][nx]   value of field c at grid point (x_i, y_j) at (j*C + c)*nx + i
- *   spectral  [nx][C][nky]  coefficient (mx, my) of field c at (ix*C + c)*nky + my,
+ * Grid and layouts (C = number of fields in the batch, e.g. fields x copies; batch fastest,
+ * as in `fft.ts` and the ETDRK4 stepper):
+ *   physical  [ny][nx][C]   value of field c at grid point (x_i, y_j) at (j*nx + i)*C + c
+ *   spectral  [nx][nky][C]  coefficient (mx, my) of field c at (ix*nky + my)*C + c,
  *             nky = ny/2 + 1, my = 0..ny/2 (half spectrum in y: the other half is the
  *             complex conjugate), ix = 0..nx-1 in FFT order (mx = ix for ix <= nx/2,
- *             ix - nx above).
+ *             ix - nx above). Mode index k = ix*nky + my, so a spectral array is [modes][C].
  * Real and imaginary parts are separate arrays of the same layout.
  *
  * Conventions (those of `fft.ts`): forward unnormalised,
@@ -18,7 +19,7 @@
  *
  * Algorithm: a real transform along y (the slow physical index, so the batch of nx*C
  * lines is contiguous and the batch loop innermost), a blocked transpose of the half
- * spectrum to [nx][C][nky], then a complex transform along x with batch C*nky. The
+ * spectrum to [nx][nky][C], then a complex transform along x with batch nky*C. The
  * inverse runs the same steps backwards. Work arrays are allocated once per field count.
  */
 import { ComplexFft, RealFft } from './fft';
@@ -61,57 +62,57 @@ export class Fft2 {
     if (!Number.isInteger(fields) || fields < 1) throw new Error(`Fft2: fields must be an integer >= 1, got ${fields}`);
     const np = this.nx * this.ny * fields;
     const ns = this.nx * this.nky * fields;
-    if (phys.length < np) throw new Error(`Fft2: physical array too short: need ${np} (${this.ny}x${fields}x${this.nx}), got ${phys.length}`);
+    if (phys.length < np) throw new Error(`Fft2: physical array too short: need ${np} (${this.ny}x${this.nx}x${fields}), got ${phys.length}`);
     if (re.length < ns || im.length < ns) {
-      throw new Error(`Fft2: spectral arrays too short: need ${ns} (${this.nx}x${fields}x${this.nky}), got re ${re.length}, im ${im.length}`);
+      throw new Error(`Fft2: spectral arrays too short: need ${ns} (${this.nx}x${this.nky}x${fields}), got re ${re.length}, im ${im.length}`);
     }
   }
 
-  /** Half spectrum [nx][C][nky] of `fields` real fields stored [ny][C][nx]. `phys` is not modified. */
+  /** Half spectra [nx][nky][C] of `fields` real fields stored [ny][nx][C]. `phys` is not modified. */
   forward(phys: Float64Array, re: Float64Array, im: Float64Array, fields = 1): void {
     this.check(phys, re, im, fields);
     this.work(fields);
     const { nx, nky } = this;
+    const C = fields;
     const tRe = this.tRe;
     const tIm = this.tIm;
-    this.rfft.forward(phys, tRe, tIm, nx * fields); // [nky][C][nx]
-    // Transpose [nky][C][nx] -> [nx][C][nky].
-    for (let c = 0; c < fields; c++) {
-      for (let ky = 0; ky < nky; ky++) {
-        let s = (ky * fields + c) * nx;
-        let d = c * nky + ky;
-        const dStep = fields * nky;
-        for (let ix = 0; ix < nx; ix++, s++, d += dStep) {
+    this.rfft.forward(phys, tRe, tIm, nx * C); // [nky][nx][C]
+    // Transpose blocks of C: [nky][nx][C] -> [nx][nky][C].
+    for (let ky = 0; ky < nky; ky++) {
+      let s = ky * nx * C;
+      for (let ix = 0; ix < nx; ix++) {
+        let d = (ix * nky + ky) * C;
+        for (let c = 0; c < C; c++, s++, d++) {
           re[d] = tRe[s]!;
           im[d] = tIm[s]!;
         }
       }
     }
-    this.cfft.forward(re, im, fields * nky);
+    this.cfft.forward(re, im, nky * C);
   }
 
   /**
-   * Real fields [ny][C][nx] from half spectra [nx][C][nky], scaled by 1/(nx ny).
+   * Real fields [ny][nx][C] from half spectra [nx][nky][C], scaled by 1/(nx ny).
    * Destroys `re` and `im` (the x transform runs in place on them).
    */
   inverseInPlace(re: Float64Array, im: Float64Array, phys: Float64Array, fields = 1): void {
     this.check(phys, re, im, fields);
     this.work(fields);
     const { nx, nky } = this;
+    const C = fields;
     const tRe = this.tRe;
     const tIm = this.tIm;
-    this.cfft.inverse(re, im, fields * nky);
-    for (let c = 0; c < fields; c++) {
-      for (let ky = 0; ky < nky; ky++) {
-        let d = (ky * fields + c) * nx;
-        let s = c * nky + ky;
-        const sStep = fields * nky;
-        for (let ix = 0; ix < nx; ix++, d++, s += sStep) {
+    this.cfft.inverse(re, im, nky * C);
+    for (let ky = 0; ky < nky; ky++) {
+      let d = ky * nx * C;
+      for (let ix = 0; ix < nx; ix++) {
+        let s = (ix * nky + ky) * C;
+        for (let c = 0; c < C; c++, s++, d++) {
           tRe[d] = re[s]!;
           tIm[d] = im[s]!;
         }
       }
     }
-    this.rfft.inverse(tRe, tIm, phys, nx * fields);
+    this.rfft.inverse(tRe, tIm, phys, nx * C);
   }
 }

@@ -40,12 +40,12 @@ describe('Fft2 (2-D real FFT on fft.ts)', () => {
     expect(phys).toEqual(keep); // input untouched
     const tol = 1e-12 * nx * ny; // accumulated rounding of nx*ny-term sums (common practice)
     for (let c = 0; c < fields; c++) {
-      const f = (i: number, j: number) => phys[(j * fields + c) * nx + i]!;
+      const f = (i: number, j: number) => phys[(j * nx + i) * fields + c]!;
       for (let ix = 0; ix < nx; ix++) {
         const mx = ix <= nx / 2 ? ix : ix - nx;
         for (let my = 0; my < ny / 2 + 1; my++) {
           const [r, s] = directDft2(f, nx, ny, (mx + nx) % nx, my);
-          const p = (ix * fields + c) * fft.nky + my;
+          const p = (ix * fft.nky + my) * fields + c;
           expect(Math.abs(re[p]! - r)).toBeLessThan(tol);
           expect(Math.abs(im[p]! - s)).toBeLessThan(tol);
         }
