@@ -10,20 +10,7 @@ import { Rng } from '@tilewise/envs';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { createSimdBackend } from '../src/net/simd';
 import type { Mlp, MlpSpec } from '../src/net/types';
-import { layerOffsets, maxAbs, maxAbsDiff, refBackward, refForward } from './simd-reference';
-
-/** Weights U(-1/sqrt(n_in), 1/sqrt(n_in)), biases U(-0.1, 0.1): typical initial scales. */
-export function initParams(spec: MlpSpec, rng: Rng): Float32Array {
-  const p = new Float32Array(layerOffsets(spec.sizes).reduce((n, _, l) => n + spec.sizes[l]! * spec.sizes[l + 1]! + spec.sizes[l + 1]!, 0));
-  layerOffsets(spec.sizes).forEach(({ w, b }, l) => {
-    const nin = spec.sizes[l]!;
-    const nout = spec.sizes[l + 1]!;
-    const s = 1 / Math.sqrt(nin);
-    rng.fillUniform(p.subarray(w, w + nin * nout), -s, s);
-    rng.fillUniform(p.subarray(b, b + nout), -0.1, 0.1);
-  });
-  return p;
-}
+import { initParams, layerOffsets, maxAbs, maxAbsDiff, refBackward, refForward } from './simd-reference';
 
 function randomArray(n: number, rng: Rng, lo = -1, hi = 1): Float32Array {
   const a = new Float32Array(n);

@@ -9,6 +9,7 @@
  *   float32 result (Figueroa 1995, "When is double rounding innocuous?", SIGNUM Newsl. 30(3)),
  *   so this emulation is IEEE-754 binary32 arithmetic, independent of any machine.
  */
+import type { Rng } from '@tilewise/envs';
 import type { Activation, MlpSpec } from '../src/net/types';
 
 export type Num = (x: number) => number;
@@ -164,3 +165,19 @@ export function maxAbs(a: ArrayLike<number>): number {
   for (let k = 0; k < a.length; k++) e = Math.max(e, Math.abs(a[k]!));
   return e;
 }
+
+/** Weights U(-1/sqrt(n_in), 1/sqrt(n_in)), biases U(-0.1, 0.1): typical initial scales. */
+export function initParams(spec: MlpSpec, rng: Rng): Float32Array {
+  const offs = layerOffsets(spec.sizes);
+  const last = offs[offs.length - 1]!;
+  const p = new Float32Array(last.b + spec.sizes[spec.sizes.length - 1]!);
+  layerOffsets(spec.sizes).forEach(({ w, b }, l) => {
+    const nin = spec.sizes[l]!;
+    const nout = spec.sizes[l + 1]!;
+    const s = 1 / Math.sqrt(nin);
+    rng.fillUniform(p.subarray(w, w + nin * nout), -s, s);
+    rng.fillUniform(p.subarray(b, b + nout), -0.1, 0.1);
+  });
+  return p;
+}
+
