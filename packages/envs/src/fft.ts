@@ -29,7 +29,8 @@
  * is what makes batched calls fast.
  *
  * Algorithm: iterative radix-2 decimation in time (Cooley & Tukey 1965, Math. Comp. 19)
- * after a bit-reversal permutation; per-stage twiddle tables are precomputed. A real
+ * after a bit-reversal permutation, with pairs of stages fused into one pass over the data
+ * (radix-2^2); per-stage twiddle tables are precomputed. A real
  * transform of size n uses one complex transform of size n/2 on z_j = x_{2j} + i x_{2j+1}
  * and the standard split step X_k = E_k + W^k O_k (e.g. Press et al., Numerical Recipes,
  * 3rd ed. 2007, sec. 12.3.2). Allocation happens only in constructors and the first time
@@ -165,46 +166,155 @@ export class ComplexFft {
    */
   butterflies(re: Float64Array, im: Float64Array, batch: number, stride: number, offset: number, inverse: boolean): void {
     const n = this.n;
+    if (n === 1) return;
+    if (n === 2) {
+      this.radix2Stage(re, im, batch, stride, offset, 1, inverse);
+      return;
+    }
+    // Stages are done two at a time (radix-2^2: the same arithmetic as two radix-2 stages
+    // with half the loads and stores); a single radix-2 stage finishes odd log2(n).
+    this.firstTwoStages(re, im, batch, stride, offset, inverse);
+    let h = 4;
+    for (; 4 * h <= n; h *= 4) this.twoStages(re, im, batch, stride, offset, h, inverse);
+    if (h < n) this.radix2Stage(re, im, batch, stride, offset, h, inverse);
+  }
+
+  /** Stages h = 1 and h = 2 together: twiddles 1 and -i (forward) / +i (inverse), no multiplies. */
+  private firstTwoStages(re: Float64Array, im: Float64Array, batch: number, stride: number, offset: number, inverse: boolean): void {
+    const n = this.n;
+    const sg = inverse ? -1 : 1; // -i * (a + ib) = b - ia (forward); +i * (a + ib) = -b + ia (inverse)
+    for (let start = 0; start < n; start += 4) {
+      let p0 = offset + start * stride;
+      let p1 = p0 + stride;
+      let p2 = p1 + stride;
+      let p3 = p2 + stride;
+      for (let b = 0; b < batch; b++, p0++, p1++, p2++, p3++) {
+        const x0r = re[p0]!;
+        const x0i = im[p0]!;
+        const x1r = re[p1]!;
+        const x1i = im[p1]!;
+        const x2r = re[p2]!;
+        const x2i = im[p2]!;
+        const x3r = re[p3]!;
+        const x3i = im[p3]!;
+        const y0r = x0r + x1r;
+        const y0i = x0i + x1i;
+        const y1r = x0r - x1r;
+        const y1i = x0i - x1i;
+        const y2r = x2r + x3r;
+        const y2i = x2i + x3i;
+        const y3r = x2r - x3r;
+        const y3i = x2i - x3i;
+        const tr = sg * y3i;
+        const ti = -sg * y3r;
+        re[p0] = y0r + y2r;
+        im[p0] = y0i + y2i;
+        re[p2] = y0r - y2r;
+        im[p2] = y0i - y2i;
+        re[p1] = y1r + tr;
+        im[p1] = y1i + ti;
+        re[p3] = y1r - tr;
+        im[p3] = y1i - ti;
+      }
+    }
+  }
+
+  /** Stages h and 2h together (h >= 4) on groups of 4h rows. */
+  private twoStages(
+    re: Float64Array,
+    im: Float64Array,
+    batch: number,
+    stride: number,
+    offset: number,
+    h: number,
+    inverse: boolean,
+  ): void {
+    const n = this.n;
     const twr = this.twRe;
     const twi = inverse ? this.twImInv : this.twImFwd;
-    // Stage h = 1: twiddle 1.
-    if (n >= 2) {
-      for (let start = 0; start < n; start += 2) {
+    const sg = inverse ? -1 : 1;
+    const hs = h * stride;
+    for (let k = 0; k < h; k++) {
+      const w1r = twr[h - 1 + k]!; // W_{2h}^k
+      const w1i = twi[h - 1 + k]!;
+      const w2r = twr[2 * h - 1 + k]!; // W_{4h}^k
+      const w2i = twi[2 * h - 1 + k]!;
+      for (let start = k; start < n; start += 4 * h) {
+        let p0 = offset + start * stride;
+        let p1 = p0 + hs;
+        let p2 = p1 + hs;
+        let p3 = p2 + hs;
+        for (let b = 0; b < batch; b++, p0++, p1++, p2++, p3++) {
+          const x0r = re[p0]!;
+          const x0i = im[p0]!;
+          const a1r = re[p1]!;
+          const a1i = im[p1]!;
+          const x2r = re[p2]!;
+          const x2i = im[p2]!;
+          const a3r = re[p3]!;
+          const a3i = im[p3]!;
+          const t1r = a1r * w1r - a1i * w1i;
+          const t1i = a1r * w1i + a1i * w1r;
+          const t3r = a3r * w1r - a3i * w1i;
+          const t3i = a3r * w1i + a3i * w1r;
+          const y0r = x0r + t1r;
+          const y0i = x0i + t1i;
+          const y1r = x0r - t1r;
+          const y1i = x0i - t1i;
+          const y2r = x2r + t3r;
+          const y2i = x2i + t3i;
+          const y3r = x2r - t3r;
+          const y3i = x2i - t3i;
+          const u2r = y2r * w2r - y2i * w2i;
+          const u2i = y2r * w2i + y2i * w2r;
+          const v3r = y3r * w2r - y3i * w2i;
+          const v3i = y3r * w2i + y3i * w2r;
+          const u3r = sg * v3i; // (-i or +i) * v3, W_{4h}^{k+h} = W_{4h}^k * W_4^1
+          const u3i = -sg * v3r;
+          re[p0] = y0r + u2r;
+          im[p0] = y0i + u2i;
+          re[p2] = y0r - u2r;
+          im[p2] = y0i - u2i;
+          re[p1] = y1r + u3r;
+          im[p1] = y1i + u3i;
+          re[p3] = y1r - u3r;
+          im[p3] = y1i - u3i;
+        }
+      }
+    }
+  }
+
+  /** One radix-2 stage of half-length h. */
+  private radix2Stage(
+    re: Float64Array,
+    im: Float64Array,
+    batch: number,
+    stride: number,
+    offset: number,
+    h: number,
+    inverse: boolean,
+  ): void {
+    const n = this.n;
+    const twr = this.twRe;
+    const twi = inverse ? this.twImInv : this.twImFwd;
+    const hs = h * stride;
+    for (let k = 0; k < h; k++) {
+      const wr = twr[h - 1 + k]!;
+      const wi = twi[h - 1 + k]!;
+      for (let start = k; start < n; start += 2 * h) {
         let p = offset + start * stride;
-        let q = p + stride;
+        let q = p + hs;
         for (let b = 0; b < batch; b++, p++, q++) {
-          const xr = re[q]!;
-          const xi = im[q]!;
+          const ur = re[q]!;
+          const ui = im[q]!;
+          const xr = ur * wr - ui * wi;
+          const xi = ur * wi + ui * wr;
           const yr = re[p]!;
           const yi = im[p]!;
           re[q] = yr - xr;
           im[q] = yi - xi;
           re[p] = yr + xr;
           im[p] = yi + xi;
-        }
-      }
-    }
-    for (let h = 2; h < n; h <<= 1) {
-      const len = h << 1;
-      const hs = h * stride;
-      for (let k = 0; k < h; k++) {
-        const wr = twr[h - 1 + k]!;
-        const wi = twi[h - 1 + k]!;
-        for (let start = k; start < n; start += len) {
-          let p = offset + start * stride;
-          let q = p + hs;
-          for (let b = 0; b < batch; b++, p++, q++) {
-            const ur = re[q]!;
-            const ui = im[q]!;
-            const xr = ur * wr - ui * wi;
-            const xi = ur * wi + ui * wr;
-            const yr = re[p]!;
-            const yi = im[p]!;
-            re[q] = yr - xr;
-            im[q] = yi - xi;
-            re[p] = yr + xr;
-            im[p] = yi + xi;
-          }
         }
       }
     }
