@@ -5,8 +5,8 @@
  * - a TD3 update (Fujimoto, van Hoof & Meger 2018, Algorithm 1: target policy smoothing, twin
  *   critics, delayed actor step, Polyak averaging) assembled by hand over the `NetBackend`
  *   interface with the shapes of scripts/bench-agent.ts: batch 256, obs 16, act 1, two hidden
- *   layers of width 64 or 256, policy delay 2. ms_per_update averages over updates, so it
- *   includes half an actor step each.
+ *   layers of width 64 or 256, policy delay 2, on one thread and on two (a helper thread for
+ *   large products). ms_per_update averages over updates, so it includes half an actor step each.
  *
  * Usage: npx tsx scripts/bench-simd.ts [--quick]
  */
@@ -144,9 +144,12 @@ function benchTd3(be: NetBackend, width: number): number {
 benchKernels('strict');
 benchKernels('fast');
 for (const mode of ['strict', 'fast'] as const) {
-  const be = createSimdBackend({ mode });
-  for (const width of [64, 256]) {
-    const ms = benchTd3(be, width);
-    emit({ algo: 'td3', width, batch: 256, obs: 16, act: 1, backend: be.name, assembled: 'bench-simd', ms_per_update: +ms.toFixed(3) });
+  for (const threads of [1, 2] as const) {
+    const be = createSimdBackend({ mode, threads });
+    for (const width of [64, 256]) {
+      const ms = benchTd3(be, width);
+      emit({ algo: 'td3', width, batch: 256, obs: 16, act: 1, backend: be.name, threads: be.threads, assembled: 'bench-simd', ms_per_update: +ms.toFixed(3) });
+    }
+    be.dispose();
   }
 }

@@ -172,3 +172,34 @@ describe.each(['strict', 'fast'] as const)('determinism (%s build)', (mode) => {
     a.forEach((x, i) => expect(bits(x)).toEqual(bits(b[i]!)));
   });
 });
+
+describe.each(['strict', 'fast'] as const)('two threads (%s build)', (mode) => {
+  it('give results bit-identical to one thread (every split size, ragged batches)', () => {
+    const one = createSimdBackend({ mode });
+    const two = createSimdBackend({ mode, threads: 2, minParallelWork: 0 });
+    expect(two.threads).toBe(2);
+    expect(two.reason).toMatch(/two threads/);
+    const rng = Rng.derive(25, `simd-backend/threads/${mode}`);
+    const spec: MlpSpec = { sizes: [17, 256, 256, 1], hidden: 'relu', output: 'tanh' };
+    const p0 = initParams(spec, rng);
+    const nets = [one, two].map((be) => {
+      const n = be.createMlp(spec);
+      n.setParams(p0);
+      return { n, opt: be.createAdam(n, ADAM) };
+    });
+    for (const batch of [256, 13, 8, 9]) {
+      const x = randomArray(batch * 17, rng);
+      const dy = randomArray(batch, rng);
+      const outs = nets.map(({ n, opt }) => {
+        const y = n.forward(x, batch).slice();
+        const dx = n.backward(dy, true)!.slice();
+        const g = n.getGrads();
+        opt.step();
+        return [y, dx, g, n.getParams(), n.predict(x, batch).slice()];
+      });
+      outs[0]!.forEach((a, i) => expect(bits(outs[1]![i]!)).toEqual(bits(a)));
+    }
+    two.dispose();
+    expect(() => createSimdBackend({ threads: 3 as 2 })).toThrow(/simd.threads/);
+  });
+});

@@ -49,6 +49,8 @@ export interface SimdKernels {
   readonly reason: string;
   readonly k: KernelExports;
   readonly heap: WasmHeap;
+  /** The compiled module (instantiated again by a helper thread on the same memory). */
+  readonly module: WasmModule;
 }
 
 const wasmDir = new URL('../../../build/wasm/', import.meta.url);
@@ -104,5 +106,5 @@ export function loadSimdKernels(mode: SimdMode = 'fast'): SimdKernels {
   const inst = new (wasmApi().Instance)(mod, { env: { memory } });
   const k = inst.exports as unknown as KernelExports;
   const build = k.usesFma() === 1 ? 'simd-fma' : 'simd';
-  return { build, reason, k, heap: new WasmHeap(memory, k.heapBase()) };
+  return { build, reason, k, heap: new WasmHeap(memory, k.heapBase()), module: mod };
 }
