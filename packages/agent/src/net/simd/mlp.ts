@@ -16,6 +16,7 @@
  * dz_prev = (dz W_l^T) * act'(y_(l-1)) with W_l^T transposed into scratch first and the
  * activation derivative fused into the product's epilogue.
  */
+import { checkMlpSpec } from '../init';
 import type { Activation, Mlp, MlpSpec } from '../types';
 import { mlpParamCount } from '../types';
 import type { WasmHeap } from './heap';
@@ -33,12 +34,7 @@ interface Pass {
 
 function validateSpec(spec: MlpSpec): void {
   const acts: readonly Activation[] = ['relu', 'tanh', 'linear'];
-  if (!Array.isArray(spec.sizes) || spec.sizes.length < 2) {
-    throw new Error(`mlp.sizes: expected at least [in, out], got ${JSON.stringify(spec.sizes)}`);
-  }
-  spec.sizes.forEach((s, i) => {
-    if (!Number.isInteger(s) || s < 1) throw new Error(`mlp.sizes[${i}]: expected a positive integer, got ${s}`);
-  });
+  checkMlpSpec(spec);
   if (!acts.includes(spec.hidden)) throw new Error(`mlp.hidden: expected relu|tanh|linear, got ${JSON.stringify(spec.hidden)}`);
   if (!acts.includes(spec.output)) throw new Error(`mlp.output: expected relu|tanh|linear, got ${JSON.stringify(spec.output)}`);
 }
