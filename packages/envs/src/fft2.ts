@@ -21,6 +21,11 @@
  * lines is contiguous and the batch loop innermost), a blocked transpose of the half
  * spectrum to [nx][nky][C], then a complex transform along x with batch nky*C. The
  * inverse runs the same steps backwards. Work arrays are allocated once per field count.
+ *
+ * Band limit in y (`myKeep`, default nky): a dealiased solver never needs modes my >=
+ * myKeep, so the forward transform writes zeros there and the inverse treats them as
+ * zero; the x transforms and transposes then run over myKeep columns only (the 1-D
+ * complex transform's stride > batch form).
  */
 import { ComplexFft, RealFft } from './fft';
 
@@ -29,17 +34,26 @@ export class Fft2 {
   readonly ny: number;
   /** ny/2 + 1 half-spectrum entries in y. */
   readonly nky: number;
+  /** Modes my < myKeep are transformed along x; the others are zero (see module comment). */
+  readonly myKeep: number;
   private readonly rfft: RealFft;
   private readonly cfft: ComplexFft;
   private tRe: Float64Array = new Float64Array(0);
   private tIm: Float64Array = new Float64Array(0);
+  /** Inverse work: rows my >= myKeep stay zero forever. */
+  private uRe: Float64Array = new Float64Array(0);
+  private uIm: Float64Array = new Float64Array(0);
 
-  constructor(nx: number, ny: number) {
+  constructor(nx: number, ny: number, myKeep = ny / 2 + 1) {
     this.cfft = new ComplexFft(nx);
     this.rfft = new RealFft(ny);
     this.nx = nx;
     this.ny = ny;
     this.nky = ny / 2 + 1;
+    if (!Number.isInteger(myKeep) || myKeep < 1 || myKeep > this.nky) {
+      throw new Error(`Fft2: myKeep must be an integer in [1, ny/2+1 = ${this.nky}], got ${myKeep}`);
+    }
+    this.myKeep = myKeep;
   }
 
   /** Entries of one field's physical array (nx ny) and of one field's half spectrum (nx nky). */
@@ -55,6 +69,8 @@ export class Fft2 {
     if (this.tRe.length < need) {
       this.tRe = new Float64Array(need);
       this.tIm = new Float64Array(need);
+      this.uRe = new Float64Array(need);
+      this.uIm = new Float64Array(need);
     }
   }
 
@@ -72,13 +88,13 @@ export class Fft2 {
   forward(phys: Float64Array, re: Float64Array, im: Float64Array, fields = 1): void {
     this.check(phys, re, im, fields);
     this.work(fields);
-    const { nx, nky } = this;
+    const { nx, nky, myKeep } = this;
     const C = fields;
     const tRe = this.tRe;
     const tIm = this.tIm;
     this.rfft.forward(phys, tRe, tIm, nx * C); // [nky][nx][C]
-    // Transpose blocks of C: [nky][nx][C] -> [nx][nky][C].
-    for (let ky = 0; ky < nky; ky++) {
+    // Transpose blocks of C: [nky][nx][C] -> [nx][nky][C], columns my < myKeep.
+    for (let ky = 0; ky < myKeep; ky++) {
       let s = ky * nx * C;
       for (let ix = 0; ix < nx; ix++) {
         let d = (ix * nky + ky) * C;
@@ -88,7 +104,13 @@ export class Fft2 {
         }
       }
     }
-    this.cfft.forward(re, im, nky * C);
+    if (myKeep < nky) {
+      for (let ix = 0; ix < nx; ix++) {
+        re.fill(0, (ix * nky + myKeep) * C, (ix + 1) * nky * C);
+        im.fill(0, (ix * nky + myKeep) * C, (ix + 1) * nky * C);
+      }
+    }
+    this.cfft.forward(re, im, myKeep * C, nky * C);
   }
 
   /**
@@ -98,12 +120,12 @@ export class Fft2 {
   inverseInPlace(re: Float64Array, im: Float64Array, phys: Float64Array, fields = 1): void {
     this.check(phys, re, im, fields);
     this.work(fields);
-    const { nx, nky } = this;
+    const { nx, nky, myKeep } = this;
     const C = fields;
-    const tRe = this.tRe;
-    const tIm = this.tIm;
-    this.cfft.inverse(re, im, nky * C);
-    for (let ky = 0; ky < nky; ky++) {
+    const tRe = this.uRe;
+    const tIm = this.uIm;
+    this.cfft.inverse(re, im, myKeep * C, nky * C);
+    for (let ky = 0; ky < myKeep; ky++) {
       let d = ky * nx * C;
       for (let ix = 0; ix < nx; ix++) {
         let s = (ix * nky + ky) * C;
