@@ -91,3 +91,16 @@ export interface TiledEnv {
   /** The physical field of one copy, for plots (layout documented by each surrogate). */
   snapshot(copy: number): Float64Array;
 }
+
+/**
+ * Something an environment reports for the run log, e.g. a copy that diverged. Passed to
+ * the `onEvent` callback given when the environment is created; never thrown.
+ */
+export interface EnvEvent {
+  /** Short machine-readable kind, e.g. "diverged". */
+  readonly kind: string;
+  /** The copy concerned, if any. */
+  readonly copy?: number;
+  /** One human-readable line. */
+  readonly message: string;
+}

@@ -29,8 +29,9 @@ export function twoThirdsMask(n: number): Float64Array {
 }
 
 /**
- * Multiply a batch of half spectra [n/2+1, batch] by (i k_j)^order, writing into out
- * (which may alias the input). The Nyquist entry is zeroed for odd orders.
+ * Multiply half spectra by (i k_j)^order, writing into out (which may alias the input).
+ * Layout [blocks, n/2+1, batch]: `blocks` consecutive batch-inner blocks (blocks = B,
+ * batch = 1 is the copy-major layout [B, n/2+1]). The Nyquist entry is zeroed for odd orders.
  */
 export function differentiateSpectrum(
   k: Float64Array,
@@ -40,6 +41,7 @@ export function differentiateSpectrum(
   outRe: Float64Array,
   outIm: Float64Array,
   batch = 1,
+  blocks = 1,
 ): void {
   if (!Number.isInteger(order) || order < 0) throw new Error(`differentiateSpectrum: order must be an integer >= 0, got ${order}`);
   const nSpec = k.length;
@@ -48,25 +50,23 @@ export function differentiateSpectrum(
   const phase = order % 4;
   for (let j = 0; j < nSpec; j++) {
     const kp = j === nyq && order % 2 === 1 ? 0 : k[j]! ** order;
-    for (let b = 0, p = j * batch; b < batch; b++, p++) {
-      const r = re[p]!;
-      const s = im[p]!;
-      switch (phase) {
-        case 0:
+    for (let c = 0; c < blocks; c++) {
+      for (let b = 0, p = (c * nSpec + j) * batch; b < batch; b++, p++) {
+        const r = re[p]!;
+        const s = im[p]!;
+        if (phase === 0) {
           outRe[p] = kp * r;
           outIm[p] = kp * s;
-          break;
-        case 1:
+        } else if (phase === 1) {
           outRe[p] = -kp * s;
           outIm[p] = kp * r;
-          break;
-        case 2:
+        } else if (phase === 2) {
           outRe[p] = -kp * r;
           outIm[p] = -kp * s;
-          break;
-        default:
+        } else {
           outRe[p] = kp * s;
           outIm[p] = -kp * r;
+        }
       }
     }
   }
