@@ -83,22 +83,19 @@ describe.each(['strict', 'fast'] as const)('SimdMlp (%s build)', (mode) => {
     const dx = net.backward(w, true)!.slice();
     const g = net.getGrads();
     const h = 1e-2;
-    for (let k = 0; k < params.length; k++) {
-      const pp = params.slice();
-      const pm = params.slice();
-      pp[k] = pp[k]! + h;
-      pm[k] = pm[k]! - h;
-      const fd = (loss(pp, x) - loss(pm, x)) / (Math.fround(params[k]! + h) - Math.fround(params[k]! - h));
-      expect(Math.abs(fd - g[k]!)).toBeLessThanOrEqual(2e-4 * Math.max(1, Math.abs(g[k]!)));
-    }
-    for (let k = 0; k < x.length; k++) {
-      const xp = x.slice();
-      const xm = x.slice();
-      xp[k] = xp[k]! + h;
-      xm[k] = xm[k]! - h;
-      const fd = (loss(params, xp) - loss(params, xm)) / (Math.fround(x[k]! + h) - Math.fround(x[k]! - h));
-      expect(Math.abs(fd - dx[k]!)).toBeLessThanOrEqual(2e-4 * Math.max(1, Math.abs(dx[k]!)));
-    }
+    /** Central differences of f at v0 in float32 steps, each checked against `grad`. */
+    const check = (f: (v: Float32Array) => number, v0: Float32Array, grad: Float32Array): void => {
+      for (let k = 0; k < v0.length; k++) {
+        const vp = v0.slice();
+        const vm = v0.slice();
+        vp[k] = vp[k]! + h;
+        vm[k] = vm[k]! - h;
+        const fd = (f(vp) - f(vm)) / (vp[k]! - vm[k]!);
+        expect(Math.abs(fd - grad[k]!)).toBeLessThanOrEqual(2e-4 * Math.max(1, Math.abs(grad[k]!)));
+      }
+    };
+    check((p) => loss(p, x), params, g);
+    check((xx) => loss(params, xx), x, dx);
     net.dispose();
   });
 
