@@ -174,7 +174,11 @@ describe.each(['strict', 'fast'] as const)('SimdMlp (%s build)', (mode) => {
     expect(got).toEqual(p);
     got[0] = 99;
     expect(net.getParams()[0]).toBe(1);
-    net.backward(Float32Array.from([1, 1]), false);
+    // Steady state hands out the same views (no per-call allocation of outputs).
+    const x2 = Float32Array.from([1, 0, 0, 1]);
+    expect(net.forward(x2, 2)).toBe(net.forward(x2, 2));
+    expect(net.predict(x2, 2)).toBe(net.predict(x2, 2));
+    expect(net.backward(Float32Array.from([1, 1]), true)).toBe(net.backward(Float32Array.from([1, 1]), true));
     const g = net.getGrads();
     g[0] = 99;
     expect(net.getGrads()[0]).not.toBe(99);

@@ -128,7 +128,7 @@ export class SimdMlp implements Mlp {
     const tr = this.train;
     let dz = this.dzA;
     let dzNext = this.dzB;
-    this.dzv.set(dy.subarray(0, batch * nL));
+    this.dzv.set(dy.length === batch * nL ? dy : dy.subarray(0, batch * nL));
     k.actGrad(dz, tr.ys[this.L - 1]!, dz, batch * nL, this.acts[this.L - 1]!);
     for (let l = this.L - 1; l >= 0; l--) {
       const nin = this.sizes[l]!;
@@ -182,7 +182,9 @@ export class SimdMlp implements Mlp {
       throw new Error('mlp.polyakInto: target must be a network of the same simd backend');
     }
     target.live();
-    if (target.sizes.length !== this.sizes.length || target.sizes.some((s, i) => s !== this.sizes[i])) {
+    let same = target.sizes.length === this.sizes.length;
+    for (let l = 0; same && l < this.sizes.length; l++) same = target.sizes[l] === this.sizes[l];
+    if (!same) {
       throw new Error(`mlp.polyakInto: target sizes ${JSON.stringify(target.sizes)} differ from ${JSON.stringify(this.sizes)}`);
     }
     if (!(tau >= 0 && tau <= 1)) throw new Error(`mlp.polyakInto: tau must be in [0, 1], got ${tau}`);

@@ -100,14 +100,14 @@ export function twoThreadKernels(k: KernelExports, module: WasmModule, heap: Was
   };
   return {
     k: {
-      heapBase: () => k.heapBase(),
-      usesFma: () => k.usesFma(),
+      heapBase: k.heapBase,
+      usesFma: k.usesFma,
       gemm,
-      actGrad: (...x) => k.actGrad(...x),
-      colsum: (...x) => k.colsum(...x),
-      transpose: (...x) => k.transpose(...x),
-      adam: (...x) => k.adam(...x),
-      polyak: (...x) => k.polyak(...x),
+      actGrad: k.actGrad,
+      colsum: k.colsum,
+      transpose: k.transpose,
+      adam: k.adam,
+      polyak: k.polyak,
     },
     threads: 2,
     reason: 'two threads for products of at least ' + minWork + ' multiply-adds',
