@@ -31,6 +31,8 @@ import { parseConfig } from './config';
 import { Etdrk4Stepper, etdrk4Coefficients, type NonlinearTerm } from './etdrk4';
 import { RealFft } from './fft';
 import { Rng } from './random';
+import { cachedReference, referenceFromBlocks, type ReferenceValue } from './reference';
+import type { EnvKind } from './registry';
 import { differentiateSpectrum, halfSpectrumWavenumbers, twoThirdsMask } from './spectral';
 
 // ---------------------------------------------------------------------------------------
@@ -652,7 +654,10 @@ export class KsEnv implements TiledEnv {
     this.writeObs();
   }
 
+  /** Observation of the current state (re-sampled, so it also reflects direct edits of `solver`). */
   observe(): Float32Array {
+    this.sample();
+    for (let b = 0; b < this.B; b++) if (this.divergedNow[b]) this.afterSampleCheck(b, 'observe');
     this.writeObs();
     return this.obs;
   }
@@ -824,34 +829,42 @@ export class KsEnv implements TiledEnv {
     }
   }
 
-  /** Flag a copy whose field is not finite or exceeds the blow-up amplitude; zero its state. */
+  /**
+   * Flag a copy whose field is not finite or exceeds the blow-up amplitude. A flagged copy
+   * is kept quiescent until reset: its state, forcing and sampled fields are zeroed (again
+   * after every later solver step of the interval), so nothing non-finite leaves the env.
+   */
   private afterSampleCheck(b: number, phase: string): void {
-    if (this.divergedNow[b]) return;
     const n = this.n;
-    const bound = this.config.blowUpAmplitude;
-    let maxAbs = 0;
-    let finite = true;
-    for (let p = b * n; p < (b + 1) * n; p++) {
-      const v = this.u[p]!;
-      if (!Number.isFinite(v)) {
-        finite = false;
-        break;
+    if (!this.divergedNow[b]) {
+      const bound = this.config.blowUpAmplitude;
+      let maxAbs = 0;
+      let finite = true;
+      for (let p = b * n; p < (b + 1) * n; p++) {
+        const v = this.u[p]!;
+        if (!Number.isFinite(v)) {
+          finite = false;
+          break;
+        }
+        const a = Math.abs(v);
+        if (a > maxAbs) maxAbs = a;
       }
-      const a = Math.abs(v);
-      if (a > maxAbs) maxAbs = a;
+      if (finite && maxAbs <= bound) return;
+      this.divergedNow[b] = 1;
+      this.onEvent?.({
+        kind: 'diverged',
+        copy: b,
+        message: `ks copy ${b} diverged during ${phase} after ${this.decisions[b]} decisions: ${finite ? `max |u| = ${maxAbs.toPrecision(4)} > ${bound}` : 'non-finite u'}`,
+      });
     }
-    if (finite && maxAbs <= bound) return;
-    this.divergedNow[b] = 1;
+    const m = this.solver.nSpec;
     this.solver.zeroCopy(b);
+    this.solver.fRe.fill(0, b * m, (b + 1) * m);
+    this.solver.fIm.fill(0, b * m, (b + 1) * m);
     this.u.fill(0, b * n, (b + 1) * n);
     this.ux.fill(0, b * n, (b + 1) * n);
-    for (let t = 0; t < this.T; t++) this.pLast[b * this.T + t] = 0;
-    for (let a = 0; a < this.A; a++) this.projLast[b * this.A + a] = 0;
-    this.onEvent?.({
-      kind: 'diverged',
-      copy: b,
-      message: `ks copy ${b} diverged during ${phase} after ${this.decisions[b]} decisions: ${finite ? `max |u| = ${maxAbs.toPrecision(4)} > ${bound}` : 'non-finite u'}`,
-    });
+    this.pLast.fill(0, b * this.T, (b + 1) * this.T);
+    this.projLast.fill(0, b * this.A, (b + 1) * this.A);
   }
 
   /** Observations from the u, u_x fields of the latest sample. */
@@ -876,3 +889,67 @@ export class KsEnv implements TiledEnv {
 function checkSeed(seed: number, what: string): void {
   if (!Number.isFinite(seed)) throw new Error(`KsEnv: ${what} must be a finite number, got ${seed}`);
 }
+
+// ---------------------------------------------------------------------------------------
+// P0 and the registry entry
+// ---------------------------------------------------------------------------------------
+
+/** The physics and protocol P0 depends on: its cache key. */
+export function ksReferenceKey(c: KsConfig): Record<string, unknown> {
+  return {
+    kind: 'ks',
+    quantity: 'P0',
+    length: c.length,
+    points: c.points,
+    dt: c.dt,
+    dealias: c.dealias,
+    spinUpTime: c.spinUpTime,
+    initialNoise: c.initialNoise,
+    ...c.reference,
+  };
+}
+
+/**
+ * Measure P0 = long-time mean of the domain-averaged P = <u_x^2> without control:
+ * `reference.copies` runs from seeded attractor states (seeds derived from reference.seed),
+ * each averaged over `reference.time` in blocks of `reference.blockTime` (every solver step
+ * sampled, by Parseval's identity). Uncertainty by batch means (reference.ts).
+ */
+export function measureKsP0(c: KsConfig): ReferenceValue {
+  const r = c.reference;
+  const s = new KsSolver({ length: c.length, points: c.points, dt: c.dt, copies: r.copies, dealias: c.dealias });
+  const seeds = Rng.derive(r.seed, 'ks-p0');
+  for (let b = 0; b < r.copies; b++) seedKsNoise(s, b, seeds.uint32(), c.initialNoise);
+  const spin = spinUpSteps(c.spinUpTime, c.dt);
+  for (let i = 0; i < spin; i++) s.step();
+  const perBlock = Math.max(1, Math.round(r.blockTime / c.dt));
+  const blocks = Math.max(1, Math.floor(r.time / (perBlock * c.dt)));
+  const means: number[] = [];
+  const acc = new Float64Array(r.copies);
+  for (let k = 0; k < blocks; k++) {
+    acc.fill(0);
+    for (let i = 0; i < perBlock; i++) {
+      s.step();
+      for (let b = 0; b < r.copies; b++) acc[b]! += s.meanSquare(b, 1);
+    }
+    for (let b = 0; b < r.copies; b++) means.push(acc[b]! / perBlock);
+  }
+  for (const m of means) {
+    if (!Number.isFinite(m)) throw new Error(`measureKsP0: the uncontrolled run diverged (dt = ${c.dt} too large for points = ${c.points}?)`);
+  }
+  return referenceFromBlocks('ks P0 = <u_x^2>', ksReferenceKey(c), means, perBlock * c.dt);
+}
+
+/** Registry entry: `kind: ks`. */
+export const ksEnvKind: EnvKind<KsConfig> = {
+  kind: 'ks',
+  summary: 'Kuramoto-Sivashinsky u_t + u u_x + u_xx + u_xxxx = f on [0, L), cut into tiles (1-D)',
+  schema: ksConfigSchema,
+  reference(config, options) {
+    return cachedReference('ks-p0', ksReferenceKey(config), () => measureKsP0(config), options);
+  },
+  create(config, options) {
+    const p0 = options.reference ?? ksEnvKind.reference(config, options).mean;
+    return new KsEnv(config, { copies: options.copies, p0, onEvent: options.onEvent });
+  },
+};
