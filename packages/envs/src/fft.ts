@@ -339,6 +339,8 @@ export class RealFft {
   private readonly wIm: Float64Array;
   private zr: Float64Array;
   private zi: Float64Array;
+  private yr: Float64Array;
+  private yi: Float64Array;
 
   constructor(n: number) {
     checkPowerOfTwo(n, 'RealFft');
@@ -356,6 +358,8 @@ export class RealFft {
     }
     this.zr = new Float64Array(h);
     this.zi = new Float64Array(h);
+    this.yr = new Float64Array(h);
+    this.yi = new Float64Array(h);
   }
 
   private work(batch: number): void {
@@ -363,6 +367,8 @@ export class RealFft {
     if (this.zr.length < need) {
       this.zr = new Float64Array(need);
       this.zi = new Float64Array(need);
+      this.yr = new Float64Array(need);
+      this.yi = new Float64Array(need);
     }
   }
 
@@ -378,6 +384,14 @@ export class RealFft {
         `RealFft: spectrum arrays too short: need ${ns} (n/2+1=${this.nSpec}, batch=${batch}, offset=${specOffset}), ` +
           `got re ${re.length}, im ${im.length}`,
       );
+    }
+  }
+
+  private checkSpectrum(re: Float64Array, im: Float64Array, batch: number, offset: number, what: string): void {
+    if (!Number.isInteger(batch) || batch < 1) throw new Error(`RealFft: batch must be an integer >= 1, got ${batch}`);
+    const ns = offset + this.nSpec * batch;
+    if (!Number.isInteger(offset) || offset < 0 || re.length < ns || im.length < ns) {
+      throw new Error(`RealFft: ${what} spectrum arrays too short: need ${ns}, got re ${re.length}, im ${im.length}`);
     }
   }
 
@@ -400,47 +414,7 @@ export class RealFft {
       }
     }
     this.half.butterflies(zr, zi, batch, batch, 0, false);
-    const wr = this.wRe;
-    const wi = this.wIm;
-    // k = 0 and k = n/2: X_0 = Re Z_0 + Im Z_0, X_{n/2} = Re Z_0 - Im Z_0 (both real).
-    {
-      let o0 = specOffset;
-      let oh = specOffset + h * batch;
-      for (let b = 0; b < batch; b++, o0++, oh++) {
-        const a = zr[b]!;
-        const c = zi[b]!;
-        re[o0] = a + c;
-        im[o0] = 0;
-        re[oh] = a - c;
-        im[oh] = 0;
-      }
-    }
-    // Pairs (k, h-k): E = (Z_k + conj Z_{h-k})/2, O = (Z_k - conj Z_{h-k})/(2i),
-    // X_k = E + W^k O and X_{h-k} = conj(E - W^k O).
-    for (let k = 1; 2 * k <= h; k++) {
-      const cr = wr[k]!;
-      const ci = wi[k]!;
-      let pk = k * batch;
-      let pm = (h - k) * batch;
-      let ok = specOffset + k * batch;
-      let om = specOffset + (h - k) * batch;
-      for (let b = 0; b < batch; b++, pk++, pm++, ok++, om++) {
-        const a = zr[pk]!;
-        const bb = zi[pk]!;
-        const c = zr[pm]!;
-        const d = zi[pm]!;
-        const er = 0.5 * (a + c);
-        const ei = 0.5 * (bb - d);
-        const or = 0.5 * (bb + d);
-        const oi = -0.5 * (a - c);
-        const tr = cr * or - ci * oi;
-        const ti = cr * oi + ci * or;
-        re[ok] = er + tr;
-        im[ok] = ei + ti;
-        re[om] = er - tr;
-        im[om] = ti - ei;
-      }
-    }
+    this.finishForward(zr, zi, re, im, batch, specOffset);
   }
 
   /** Real x from the half spectrum re/im (k = 0..n/2), scaled by 1/n; re/im are not modified. */
@@ -450,6 +424,61 @@ export class RealFft {
     const h = this.n / 2;
     const zr = this.zr;
     const zi = this.zi;
+    this.startInverse(re, im, zr, zi, batch, specOffset);
+    for (let j = 0; j < h; j++) {
+      let p = j * batch;
+      let s0 = xOffset + 2 * j * batch;
+      let s1 = s0 + batch;
+      for (let b = 0; b < batch; b++, p++, s0++, s1++) {
+        x[s0] = zr[p]!;
+        x[s1] = zi[p]!;
+      }
+    }
+  }
+
+  /**
+   * FFT(IFFT(X)^2): the half spectrum of the square of the real signal whose half spectrum
+   * is (re, im), for a quadratic nonlinearity. Bit-identical to inverse, squaring and
+   * forward in turn, without the round trip through a real array. Input and output may not
+   * overlap; offsets as for forward/inverse.
+   */
+  squareOfSignal(
+    re: Float64Array,
+    im: Float64Array,
+    outRe: Float64Array,
+    outIm: Float64Array,
+    batch = 1,
+    inOffset = 0,
+    outOffset = 0,
+  ): void {
+    this.checkSpectrum(re, im, batch, inOffset, 'input');
+    this.checkSpectrum(outRe, outIm, batch, outOffset, 'output');
+    this.work(batch);
+    const h = this.n / 2;
+    const zr = this.zr;
+    const zi = this.zi;
+    const yr = this.yr;
+    const yi = this.yi;
+    const rev = this.half.bitrev;
+    this.startInverse(re, im, zr, zi, batch, inOffset);
+    // z_j = u_{2j} + i u_{2j+1}; the forward input is u_{2j}^2 + i u_{2j+1}^2, bit-reversed.
+    for (let j = 0; j < h; j++) {
+      let p = j * batch;
+      let q = rev[j]! * batch;
+      for (let b = 0; b < batch; b++, p++, q++) {
+        const a = zr[p]!;
+        const c = zi[p]!;
+        yr[q] = a * a;
+        yi[q] = c * c;
+      }
+    }
+    this.half.butterflies(yr, yi, batch, batch, 0, false);
+    this.finishForward(yr, yi, outRe, outIm, batch, outOffset);
+  }
+
+  /** Inverse, first half: split the half spectrum into Z (bit-reversed, scaled) and run the inverse butterflies. */
+  private startInverse(re: Float64Array, im: Float64Array, zr: Float64Array, zi: Float64Array, batch: number, specOffset: number): void {
+    const h = this.n / 2;
     const rev = this.half.bitrev;
     const wr = this.wRe;
     const wi = this.wIm;
@@ -493,13 +522,50 @@ export class RealFft {
       }
     }
     this.half.butterflies(zr, zi, batch, batch, 0, true);
-    for (let j = 0; j < h; j++) {
-      let p = j * batch;
-      let s0 = xOffset + 2 * j * batch;
-      let s1 = s0 + batch;
-      for (let b = 0; b < batch; b++, p++, s0++, s1++) {
-        x[s0] = zr[p]!;
-        x[s1] = zi[p]!;
+  }
+
+  /** Forward, second half: the half spectrum X from the transformed Z = FFT_{n/2}(z). */
+  private finishForward(zr: Float64Array, zi: Float64Array, re: Float64Array, im: Float64Array, batch: number, specOffset: number): void {
+    const h = this.n / 2;
+    const wr = this.wRe;
+    const wi = this.wIm;
+    // k = 0 and k = n/2: X_0 = Re Z_0 + Im Z_0, X_{n/2} = Re Z_0 - Im Z_0 (both real).
+    {
+      let o0 = specOffset;
+      let oh = specOffset + h * batch;
+      for (let b = 0; b < batch; b++, o0++, oh++) {
+        const a = zr[b]!;
+        const c = zi[b]!;
+        re[o0] = a + c;
+        im[o0] = 0;
+        re[oh] = a - c;
+        im[oh] = 0;
+      }
+    }
+    // Pairs (k, h-k): E = (Z_k + conj Z_{h-k})/2, O = (Z_k - conj Z_{h-k})/(2i),
+    // X_k = E + W^k O and X_{h-k} = conj(E - W^k O).
+    for (let k = 1; 2 * k <= h; k++) {
+      const cr = wr[k]!;
+      const ci = wi[k]!;
+      let pk = k * batch;
+      let pm = (h - k) * batch;
+      let ok = specOffset + k * batch;
+      let om = specOffset + (h - k) * batch;
+      for (let b = 0; b < batch; b++, pk++, pm++, ok++, om++) {
+        const a = zr[pk]!;
+        const bb = zi[pk]!;
+        const c = zr[pm]!;
+        const d = zi[pm]!;
+        const er = 0.5 * (a + c);
+        const ei = 0.5 * (bb - d);
+        const or = 0.5 * (bb + d);
+        const oi = -0.5 * (a - c);
+        const tr = cr * or - ci * oi;
+        const ti = cr * oi + ci * or;
+        re[ok] = er + tr;
+        im[ok] = ei + ti;
+        re[om] = er - tr;
+        im[om] = ti - ei;
       }
     }
   }

@@ -207,7 +207,6 @@ export class KsSolver {
   private readonly vImCopy: Float64Array[];
   /** The copy the nonlinear term is being evaluated for. */
   private current = 0;
-  private readonly work: Float64Array;
   private readonly wRe: Float64Array;
   private readonly wIm: Float64Array;
   /** 0.5 k_j times the dealiasing mask, zero at Nyquist. */
@@ -246,12 +245,9 @@ export class KsSolver {
     }
     this.wRe = new Float64Array(size);
     this.wIm = new Float64Array(size);
-    this.work = new Float64Array(o.points);
     this.fft = new RealFft(o.points);
     this.stepper = new Etdrk4Stepper(etdrk4Coefficients(this.linear, o.dt), 1);
-    const n = o.points;
     const fft = this.fft;
-    const u = this.work;
     const wRe = this.wRe;
     const wIm = this.wIm;
     const halfK = this.halfK;
@@ -261,9 +257,7 @@ export class KsSolver {
     this.nonlinear = {
       // N(v) = -(i k/2) FFT(u^2) + FFT(f): re = (k/2) Im w + Re F, im = -(k/2) Re w + Im F.
       evaluate(aRe, aIm, oRe, oIm) {
-        fft.inverse(aRe, aIm, u);
-        for (let i = 0; i < n; i++) u[i] = u[i]! * u[i]!;
-        fft.forward(u, wRe, wIm);
+        fft.squareOfSignal(aRe, aIm, wRe, wIm);
         const off = self.current * nSpec;
         for (let j = 0; j < nSpec; j++) {
           const c = halfK[j]!;

@@ -236,4 +236,33 @@ describe('RealFft', () => {
     for (let i = 3; i < x.length; i++) expect(Math.abs(y[i]! - x[i]!)).toBeLessThan(1e-14 * 16);
     for (let i = 0; i < 3; i++) expect(y[i]).toBe(0);
   });
+
+  it.each([8, 64, 256])('n=%i: squareOfSignal is bit-identical to inverse, square, forward (batch of 3) and matches the direct DFT of u^2', (n) => {
+    const rng = new Rng(`sq-${n}`);
+    const batch = 3;
+    const fft = new RealFft(n);
+    const x = new Float64Array(n * batch);
+    rng.fillNormal(x);
+    const re = new Float64Array(fft.nSpec * batch);
+    const im = new Float64Array(fft.nSpec * batch);
+    fft.forward(x, re, im, batch);
+    const u = new Float64Array(n * batch);
+    fft.inverse(re, im, u, batch);
+    for (let i = 0; i < u.length; i++) u[i] = u[i]! * u[i]!;
+    const r1 = new Float64Array(fft.nSpec * batch);
+    const i1 = new Float64Array(fft.nSpec * batch);
+    fft.forward(u, r1, i1, batch);
+    const r2 = new Float64Array(fft.nSpec * batch);
+    const i2 = new Float64Array(fft.nSpec * batch);
+    fft.squareOfSignal(re, im, r2, i2, batch);
+    expect(Array.from(r2)).toEqual(Array.from(r1));
+    expect(Array.from(i2)).toEqual(Array.from(i1));
+    const sq: number[] = [];
+    for (let j = 0; j < n; j++) sq.push(x[j * batch]! ** 2);
+    const ref = directDft(sq, new Array<number>(n).fill(0), -1);
+    for (let k = 0; k <= n / 2; k++) {
+      expect(Math.abs(r2[k * batch]! - ref.re[k]!)).toBeLessThan(1e-12 * n);
+      expect(Math.abs(i2[k * batch]! - ref.im[k]!)).toBeLessThan(1e-12 * n);
+    }
+  });
 });
