@@ -35,6 +35,8 @@
 import { z } from 'zod';
 import type { EnvEvent, EnvSpec, ObsLayoutEntry, StepOut, TiledEnv } from './contract';
 import { parseConfig } from './config';
+import { cachedReference, referenceFromBlocks, type ReferenceValue } from './reference';
+import type { EnvKind } from './registry';
 import { etdrk4Coefficients, Etdrk4Stepper, type NonlinearTerm } from './etdrk4';
 import { Fft2 } from './fft2';
 import { Rng } from './random';
@@ -446,26 +448,26 @@ export const kolmogorovConfigSchema = z
           .number()
           .positive()
           .max(1)
-          .default(0.25)
-          .describe('Tile mean flow is floored at this fraction of U0 before Cf = 2/(n U^2) is formed, so Cf/Cf0 <= 1/floor^2 (default 0.25).'),
+          .default(0.05)
+          .describe('Tile mean flow is floored at this fraction of U_lam before Cf = 2/(n U^2) is formed, so Cf <= Cf_lam/floor^2 (default 0.05).'),
         onDivergence: z.number().finite().default(-10).describe('Reward of every tile of a copy that diverged (default -10).'),
       })
       .prefault({})
       .describe('Reward shaping.'),
     reference: z
       .strictObject({
-        time: z.number().positive().finite().default(1000).describe('Uncontrolled time per copy averaged to measure U0 (default 1000).'),
-        copies: z.number().int().positive().default(4).describe('Independent copies averaged to measure U0 (default 4).'),
+        time: z.number().positive().finite().default(500).describe('Uncontrolled time per copy averaged to measure Cf0 and I0 (default 500).'),
+        copies: z.number().int().positive().default(4).describe('Independent copies averaged to measure Cf0 and I0 (default 4).'),
         blockTime: z
           .number()
           .positive()
           .finite()
           .default(50)
-          .describe('Length of the blocks whose means estimate the uncertainty of U0 (default 50).'),
-        seed: z.number().int().default(20240).describe('Seed of the U0 measurement runs (default 20240).'),
+          .describe('Length of the blocks whose means estimate the uncertainty of Cf0 and I0 (default 50).'),
+        seed: z.number().int().default(20240).describe('Seed of the reference measurement runs (default 20240).'),
       })
       .prefault({})
-      .describe('How U0, the long-time uncontrolled mean of the mean-flow amplitude, is measured (then cached).'),
+      .describe('How Cf0 (uncontrolled mean tile Cf) and I0 (uncontrolled mean power input) are measured (then cached).'),
   })
   .superRefine((c, ctx) => {
     const bad = (path: (string | number)[], message: string, input: unknown): void => {
@@ -546,8 +548,10 @@ export function seedKolmogorov(solver: KolmogorovSolver, copy: number, seed: num
 export interface KolmogorovEnvOptions {
   /** Copies B stepped together. */
   readonly copies: number;
-  /** U0: long-time uncontrolled mean of the domain mean-flow amplitude for this physics and grid. */
-  readonly meanFlow0: number;
+  /** Cf0: long-time uncontrolled mean of the tile Cf (tiles and intervals) for this config. */
+  readonly cf0: number;
+  /** I0 = P0: long-time uncontrolled mean energy input rate <u sin(n y)>, per unit area. */
+  readonly i0: number;
   /** Receives events worth logging (a copy diverged). */
   readonly onEvent?: (e: EnvEvent) => void;
 }
@@ -558,7 +562,7 @@ export interface KolmogorovStepOut extends StepOut {
   readonly inputRatio: Float64Array;
   /** Interval mean of D/D_lam per copy, [B]. */
   readonly dissipationRatio: Float64Array;
-  /** Domain Cf/Cf0 per copy from the interval-mean domain U, [B]. */
+  /** Domain mean of the tiles' Cf/Cf0 per copy, [B]. */
   readonly domainDrag: Float64Array;
 }
 
@@ -580,19 +584,18 @@ export interface KolmogorovStepOut extends StepOut {
  * the tiles' observations, actions and rewards.
  *
  * Drag analogue (docs/kolmogorov.md): tile mean-flow amplitude U_t = 2 <u sin(n y)>_tile
- * (grid mean over the tile; exact projection because the tile spans whole wavelengths),
- * averaged over the interval by the trapezoid rule over the m+1 step samples; C_f =
- * 2 F / (n U^2) with F = 1, so Cf_t/Cf0 = (U0 / max(U_t, floor U0))^2 with U0 the cached
- * uncontrolled mean. drag = Cf_t/Cf0.
+ * (grid mean over the tile; the projection of u on sin(n y), exact for the laminar state
+ * because the tile spans whole wavelengths), averaged over the interval by the trapezoid
+ * rule over the m+1 step samples; Cf_t = 2 F / (n max(U_t, floor U_lam)^2) with F = 1
+ * (Cf_lam = 2 n^3 / Re^2 is the lowest value); drag = Cf_t / Cf0, Cf0 the cached long-time
+ * uncontrolled mean of Cf_t, so the uncontrolled drag averages 1.
  *
  * Actuation power: jet t exchanges p_t = a_t int v g_t dA with the flow (its term of dE/dt;
  * the mean correction does no work on a zero-mean v). Cost Pi+_t = max(p_t, 0)/|tile|,
- * interval-averaged; actuationPower = Pi+_t / P0 with P0 = I0 = U0/2 the uncontrolled mean
+ * interval-averaged; actuationPower = Pi+_t / P0 with P0 = I0 the cached uncontrolled mean
  * power input per unit area. Signed <v f>_t/P0 is `forcingWork`.
  *
- * Reward: s_t = 1 - Cf_t/Cf0 - c Pi+_t/P0; the domain score s_D = 1 - Cf_D/Cf0 - c mean_t
- * Pi+_t/P0 uses the domain mean flow U_D = mean_t U_t (Cf is nonlinear in U, so the mean of
- * the tiles' Cf is not the domain's Cf); r_t = (1 - beta) s_t + beta s_D. A diverged copy gets
+ * Reward: s_t = 1 - Cf_t/Cf0 - c Pi+_t/P0, s_D = mean_t s_t, r_t = (1 - beta) s_t + beta s_D. A diverged copy gets
  * `reward.onDivergence` on every tile, zero observations, NaN drag, and its state is
  * zeroed until the caller resets it. Net saving (tables): 1 - Cf/Cf0 - Pi+/P0.
  * Not a channel flow: the "drag" is an analogue (docs/kolmogorov.md).
@@ -600,7 +603,8 @@ export interface KolmogorovStepOut extends StepOut {
 export class KolmogorovEnv implements TiledEnv {
   readonly spec: EnvSpec;
   readonly config: KolmogorovConfig;
-  readonly meanFlow0: number;
+  readonly cf0: number;
+  readonly i0: number;
   readonly solver: KolmogorovSolver;
   /** Signed work rate <v f> of each tile's jet over the last interval, / P0, [B, T]. */
   readonly forcingWork: Float64Array;
@@ -666,10 +670,10 @@ export class KolmogorovEnv implements TiledEnv {
     if (!Number.isInteger(options.copies) || options.copies < 1) {
       throw new Error(`KolmogorovEnv: copies must be an integer >= 1, got ${options.copies}`);
     }
-    if (!(options.meanFlow0 > 0 && Number.isFinite(options.meanFlow0))) {
-      throw new Error(`KolmogorovEnv: meanFlow0 must be positive and finite, got ${options.meanFlow0}`);
-    }
-    this.meanFlow0 = options.meanFlow0;
+    if (!(options.cf0 > 0 && Number.isFinite(options.cf0))) throw new Error(`KolmogorovEnv: cf0 must be positive and finite, got ${options.cf0}`);
+    if (!(options.i0 > 0 && Number.isFinite(options.i0))) throw new Error(`KolmogorovEnv: i0 must be positive and finite, got ${options.i0}`);
+    this.cf0 = options.cf0;
+    this.i0 = options.i0;
     this.onEvent = options.onEvent;
     const B = (this.B = options.copies);
     const [nx, ny] = c.points;
@@ -891,9 +895,9 @@ export class KolmogorovEnv implements TiledEnv {
     const inv = 1 / m;
     const n = c.forcingWavenumber;
     const lam = laminarAmplitude(c.reynolds, n) / 2; // I_lam = D_lam
-    const U0 = this.meanFlow0;
-    const floor = c.reward.meanFlowFloor * U0;
-    const invP0 = 2 / U0; // P0 = I0 = U0/2 (F = 1)
+    const floor = c.reward.meanFlowFloor * laminarAmplitude(c.reynolds, n);
+    const cfScale = 2 / (n * this.cf0); // Cf_t / Cf0 = cfScale / U^2
+    const invP0 = 1 / this.i0;
     const beta = c.reward.beta;
     const pen = c.reward.actuationPenalty;
     this.done.fill(0);
@@ -917,26 +921,23 @@ export class KolmogorovEnv implements TiledEnv {
         }
         continue;
       }
-      let uDomain = 0;
-      let costDomain = 0;
+      let sDomain = 0;
+      let dDomain = 0;
       for (let t = 0; t < T; t++) {
         const i = b * T + t;
         const U = this.uAcc[i]! * inv;
         this.tileMeanFlow[i] = U;
-        uDomain += U;
         const Ue = U > floor ? U : floor;
-        this.drag[i] = (U0 / Ue) * (U0 / Ue);
+        this.drag[i] = cfScale / (Ue * Ue);
         this.power[i] = this.costAcc[i]! * inv * invP0;
         this.forcingWork[i] = this.workAcc[i]! * inv * invP0;
-        costDomain += this.power[i]!;
+        dDomain += this.drag[i]!;
+        sDomain += 1 - this.drag[i]! - pen * this.power[i]!;
       }
-      uDomain /= T;
-      costDomain /= T;
-      const Ud = uDomain > floor ? uDomain : floor;
-      this.domainDrag[b] = (U0 / Ud) * (U0 / Ud);
+      sDomain /= T;
+      this.domainDrag[b] = dDomain / T;
       this.inputRatio[b] = (this.inAcc[b]! * inv) / lam;
       this.dissipationRatio[b] = (this.disAcc[b]! * inv) / lam;
-      const sDomain = 1 - this.domainDrag[b]! - pen * costDomain;
       for (let t = 0; t < T; t++) {
         const i = b * T + t;
         const sTile = 1 - this.drag[i]! - pen * this.power[i]!;
@@ -1118,6 +1119,107 @@ function mod(a: number, n: number): number {
 function checkSeed(seed: number, what: string): void {
   if (!Number.isFinite(seed)) throw new Error(`KolmogorovEnv: ${what} must be a finite number, got ${seed}`);
 }
+
+// ---------------------------------------------------------------------------------------
+// Reference values (Cf0, I0) and the registry entry
+// ---------------------------------------------------------------------------------------
+
+/** Everything the uncontrolled tile-Cf statistics depend on: physics, tiling, floor, interval and protocol. */
+export function kolmogorovReferenceKey(c: KolmogorovConfig): Record<string, unknown> {
+  return {
+    kind: 'kolmogorov',
+    reynolds: c.reynolds,
+    forcingWavenumber: c.forcingWavenumber,
+    aspect: c.aspect,
+    points: c.points,
+    dt: c.dt,
+    linearDrag: c.linearDrag,
+    tiles: c.tiles,
+    controlSteps: c.controlSteps,
+    meanFlowFloor: c.reward.meanFlowFloor,
+    spinUpTime: c.spinUpTime,
+    initialNoise: c.initialNoise,
+    reference: c.reference,
+  };
+}
+
+/**
+ * Measure Cf0 (long-time uncontrolled mean of the tile Cf = 2/(n max(U_t, floor U_lam)^2),
+ * over tiles and control intervals) and I0 (uncontrolled mean power input per unit area)
+ * with the env's own estimator: `reference.copies` seeded copies, uncontrolled, after the
+ * spin-up, for `reference.time` each, cut into blocks of `reference.blockTime` (batch means,
+ * reference.ts). Throws if a copy diverges.
+ */
+export function measureKolmogorovReferences(c: KolmogorovConfig): { cf0: ReferenceValue; i0: ReferenceValue } {
+  const r = c.reference;
+  const env = new KolmogorovEnv({ ...c, episodeLength: Number.MAX_SAFE_INTEGER }, { copies: r.copies, cf0: 1, i0: 1 });
+  const seeds = Rng.derive(r.seed, 'kolmogorov-reference');
+  env.reset(Array.from({ length: r.copies }, () => seeds.uint32()));
+  const interval = c.controlSteps * c.dt;
+  const perBlock = Math.max(1, Math.round(r.blockTime / interval));
+  const blocks = Math.max(1, Math.floor(r.time / (perBlock * interval)));
+  const T = env.spec.tiles;
+  const iLam = laminarAmplitude(c.reynolds, c.forcingWavenumber) / 2;
+  const zero = new Float32Array(r.copies * T);
+  const cf: number[] = [];
+  const inp: number[] = [];
+  const accCf = new Float64Array(r.copies);
+  const accI = new Float64Array(r.copies);
+  for (let k = 0; k < blocks; k++) {
+    accCf.fill(0);
+    accI.fill(0);
+    for (let i = 0; i < perBlock; i++) {
+      const out = env.step(zero);
+      for (let b = 0; b < r.copies; b++) {
+        if (out.diverged[b]) throw new Error(`measureKolmogorovReferences: uncontrolled copy ${b} diverged (dt = ${c.dt} too large for points = ${c.points}?)`);
+        accCf[b]! += out.domainDrag[b]!; // with cf0 = 1 this is the tile mean of Cf_t
+        accI[b]! += out.inputRatio[b]! * iLam;
+      }
+    }
+    for (let b = 0; b < r.copies; b++) {
+      cf.push(accCf[b]! / perBlock);
+      inp.push(accI[b]! / perBlock);
+    }
+  }
+  const key = kolmogorovReferenceKey(c);
+  const bt = perBlock * interval;
+  return {
+    cf0: referenceFromBlocks('kolmogorov Cf0 = mean tile 2/(n max(U_t, floor U_lam)^2)', key, cf, bt),
+    i0: referenceFromBlocks('kolmogorov I0 = <u sin(n y)>', key, inp, bt),
+  };
+}
+
+/** One measurement serves both cached values within a process. */
+const measured = new Map<string, { cf0: ReferenceValue; i0: ReferenceValue }>();
+function measureOnce(c: KolmogorovConfig): { cf0: ReferenceValue; i0: ReferenceValue } {
+  const k = JSON.stringify(kolmogorovReferenceKey(c));
+  let v = measured.get(k);
+  if (!v) {
+    v = measureKolmogorovReferences(c);
+    measured.set(k, v);
+  }
+  return v;
+}
+
+/** The cached I0 (measured together with Cf0 when absent). */
+export function kolmogorovI0(c: KolmogorovConfig, options: { cacheDir?: string; onEvent?: (e: EnvEvent) => void }): ReferenceValue {
+  return cachedReference('kolmogorov-i0', kolmogorovReferenceKey(c), () => measureOnce(c).i0, options);
+}
+
+/** Registry entry: `kind: kolmogorov`. The reference value is Cf0; I0 is cached beside it. */
+export const kolmogorovEnvKind: EnvKind<KolmogorovConfig> = {
+  kind: 'kolmogorov',
+  summary: 'Kolmogorov flow u_t + u.grad u = -grad p + lap u/Re + sin(n y) e_x on a 2-D periodic box, cut into Tx x Ty tiles',
+  schema: kolmogorovConfigSchema,
+  reference(config, options) {
+    return cachedReference('kolmogorov-cf0', kolmogorovReferenceKey(config), () => measureOnce(config).cf0, options);
+  },
+  create(config, options) {
+    const cf0 = options.reference ?? kolmogorovEnvKind.reference(config, options).mean;
+    const i0 = kolmogorovI0(config, options).mean;
+    return new KolmogorovEnv(config, { copies: options.copies, cf0, i0, onEvent: options.onEvent });
+  },
+};
 
 // ---------------------------------------------------------------------------------------
 // Fluctuation statistics for reports

@@ -9,6 +9,7 @@
 import type { z } from 'zod';
 import { ConfigError, parseConfig } from './config';
 import type { EnvEvent, TiledEnv } from './contract';
+import { kolmogorovEnvKind } from './kolmogorov';
 import { ksEnvKind } from './ks';
 import type { ReferenceValue } from './reference';
 
@@ -37,7 +38,7 @@ export interface EnvKind<C> {
 }
 
 /** Built-in surrogates (each entry has its own config type, hence `any`). */
-const BUILT_IN: ReadonlyArray<EnvKind<any>> = [ksEnvKind];
+const BUILT_IN: ReadonlyArray<EnvKind<any>> = [ksEnvKind, kolmogorovEnvKind];
 
 const kinds = new Map<string, EnvKind<any>>(BUILT_IN.map((k) => [k.kind, k]));
 

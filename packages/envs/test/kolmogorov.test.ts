@@ -9,7 +9,9 @@ import {
   parseKolmogorovConfig,
   sensorSamples,
 } from '../src/kolmogorov';
+import { exerciseEnv } from '../src/checker';
 import { Rng } from '../src/random';
+import { createEnv, envKinds } from '../src/registry';
 
 const TWO_PI = 2 * Math.PI;
 
@@ -276,11 +278,24 @@ function shiftCopy(s: KolmogorovSolver, from: number, to: number, cellsX: number
 }
 
 describe('KolmogorovEnv', () => {
+  it('passes the environment-contract checker (shapes, bounds, finiteness, flags) with overdriven actions', () => {
+    const env = new KolmogorovEnv(smallConfig({ haloTiles: [1, 1], tiles: [4, 4], reynolds: 20 }), { copies: 2, cf0: 20, i0: 0.15 });
+    expect(exerciseEnv(env, { steps: 7, seed: 1, overdrive: 2 })).toEqual([]);
+    expect(env.spec.obsDim).toBe(2 * 6 * 6); // u and v at (3 tiles x 2 sensors)^2 points
+  });
+
+  it('is registered as kind "kolmogorov" and built from a raw env section with an explicit reference', () => {
+    expect(envKinds()).toContain('kolmogorov');
+    const env = createEnv({ kind: 'kolmogorov', points: [32, 32], spinUpTime: 1, reference: { time: 1, blockTime: 1, copies: 1 } }, { copies: 1, reference: 20, cacheDir: '/nonexistent/not-written' });
+    expect(env.spec.kind).toBe('kolmogorov');
+    expect(env.spec.tileGrid).toEqual([4, 2]);
+  });
+
   it('shifting the flow by one tile in x or in y permutes observations, opposition signals and rewards', () => {
     // Index permutation is exact; the arithmetic through the FFTs is the same up to
     // round-off (an FFT is not bitwise shift-equivariant), hence the tolerances.
     const cfg = smallConfig({ reward: { beta: 0.3, actuationPenalty: 0.5 } });
-    const env = new KolmogorovEnv(cfg, { copies: 3, meanFlow0: 0.3 });
+    const env = new KolmogorovEnv(cfg, { copies: 3, cf0: 20, i0: 0.15 });
     env.reset([11, 12, 13]);
     const s = env.solver;
     const [Tx, Ty] = cfg.tiles;
@@ -322,8 +337,8 @@ describe('KolmogorovEnv', () => {
 
   it('same seeds give bit-identical episodes; a copy reset alone equals the batched reset', () => {
     const cfg = smallConfig();
-    const a = new KolmogorovEnv(cfg, { copies: 2, meanFlow0: 0.3 });
-    const b = new KolmogorovEnv(cfg, { copies: 2, meanFlow0: 0.3 });
+    const a = new KolmogorovEnv(cfg, { copies: 2, cf0: 20, i0: 0.15 });
+    const b = new KolmogorovEnv(cfg, { copies: 2, cf0: 20, i0: 0.15 });
     const oa = a.reset([5, 6]).slice();
     const ob = b.reset([5, 6]).slice();
     expect(oa).toEqual(ob);
@@ -335,7 +350,7 @@ describe('KolmogorovEnv', () => {
     expect(rb.reward).toEqual(rewardA);
     expect(rb.obs).toEqual(obsA);
     // resetCopy(1, 5) runs a one-copy solver: copy 1 must equal copy 0 of a fresh batched reset.
-    const c = new KolmogorovEnv(cfg, { copies: 2, meanFlow0: 0.3 });
+    const c = new KolmogorovEnv(cfg, { copies: 2, cf0: 20, i0: 0.15 });
     c.reset([9, 9]);
     c.resetCopy(1, 5);
     const D = c.spec.obsDim * c.spec.tiles;
@@ -347,7 +362,7 @@ describe('KolmogorovEnv', () => {
   it('a blow-up ends the episode with the diverged flag, an event and finite outputs, never a throw', () => {
     const events: string[] = [];
     const cfg = smallConfig({ dt: 0.6, controlSteps: 20, actionBound: 50, spinUpTime: 0 });
-    const env = new KolmogorovEnv(cfg, { copies: 2, meanFlow0: 0.3, onEvent: (e) => events.push(`${e.kind}:${e.copy}`) });
+    const env = new KolmogorovEnv(cfg, { copies: 2, cf0: 20, i0: 0.15, onEvent: (e) => events.push(`${e.kind}:${e.copy}`) });
     env.reset([1, 2]);
     let out = env.step(new Float32Array(16).fill(50));
     for (let k = 0; k < 5 && !out.diverged[0]; k++) out = env.step(new Float32Array(16).fill(50));
@@ -364,7 +379,7 @@ describe('KolmogorovEnv', () => {
   });
 
   it('ends episodes by the time limit with truncated set', () => {
-    const env = new KolmogorovEnv(smallConfig(), { copies: 1, meanFlow0: 0.3 });
+    const env = new KolmogorovEnv(smallConfig(), { copies: 1, cf0: 20, i0: 0.15 });
     env.reset([1]);
     const a = new Float32Array(8);
     expect(env.step(a).done[0]).toBe(0);
@@ -375,10 +390,10 @@ describe('KolmogorovEnv', () => {
     expect(out.diverged[0]).toBe(0);
   });
 
-  it('uncontrolled laminar state gives Cf/Cf0 = (U0/U_lam)^2 in every tile, I/I_lam = D/D_lam = 1 and zero actuation power', () => {
+  it('uncontrolled laminar state gives Cf = Cf_lam = 2/(n U_lam^2) in every tile, I/I_lam = D/D_lam = 1 and zero actuation power', () => {
     const cfg = smallConfig({ reynolds: 5 }); // below the neutral Re 9.97: the laminar state is stable
-    const U0 = 0.2;
-    const env = new KolmogorovEnv(cfg, { copies: 1, meanFlow0: U0 });
+    const cf0 = 3;
+    const env = new KolmogorovEnv(cfg, { copies: 1, cf0, i0: 0.15 });
     env.reset([1]);
     const s = env.solver;
     const U = laminarAmplitude(5, 4);
@@ -386,7 +401,7 @@ describe('KolmogorovEnv', () => {
     s.computeVelocity();
     const out = env.step(new Float32Array(8));
     for (let t = 0; t < 8; t++) {
-      expect(out.drag[t]).toBeCloseTo((U0 / U) ** 2, 12);
+      expect(out.drag[t]).toBeCloseTo(2 / (4 * U * U) / cf0, 12);
       expect(out.actuationPower[t]).toBe(0);
       expect(env.tileMeanFlow[t]).toBeCloseTo(U, 12);
     }
@@ -404,7 +419,7 @@ describe('KolmogorovEnv', () => {
 
   it('a jet pushing against the sensed cross-stream velocity does negative work; pushing with it costs power', () => {
     const cfg = smallConfig();
-    const env = new KolmogorovEnv(cfg, { copies: 2, meanFlow0: 0.3 });
+    const env = new KolmogorovEnv(cfg, { copies: 2, cf0: 20, i0: 0.15 });
     env.reset([4, 4]);
     const s = env.oppositionSignal().slice();
     const act = new Float32Array(16);
@@ -430,7 +445,7 @@ describe('KolmogorovEnv', () => {
     expect(() => parseKolmogorovConfig({ kind: 'kolmogorov', oppositionOffset: [0, 0.05] })).toThrow(/env\.oppositionOffset\[1\].*grid spacings.*got 0\.05/);
     expect(() => parseKolmogorovConfig({ kind: 'kolmogorov', viscosity: 1 })).toThrow(/unknown key env\.viscosity/);
     expect(() => parseKolmogorovConfig({ kind: 'kolmogorov', reward: { beta: 2 } })).toThrow(/env\.reward\.beta.*got 2/);
-    expect(() => new KolmogorovEnv(smallConfig(), { copies: 1, meanFlow0: -1 })).toThrow(/meanFlow0.*got -1/);
+    expect(() => new KolmogorovEnv(smallConfig(), { copies: 1, cf0: -1, i0: 1 })).toThrow(/cf0.*got -1/);
   });
 });
 
@@ -471,7 +486,7 @@ describe('fluctuationStats', () => {
   });
 
   it('sensorSamples returns every tile sensor with its row class', () => {
-    const env = new KolmogorovEnv(smallConfig({ haloTiles: [1, 0] }), { copies: 2, meanFlow0: 0.3 });
+    const env = new KolmogorovEnv(smallConfig({ haloTiles: [1, 0] }), { copies: 2, cf0: 20, i0: 0.15 });
     env.reset([1, 2]);
     const s = sensorSamples(env);
     expect(s.u.length).toBe(2 * 8 * 4);
