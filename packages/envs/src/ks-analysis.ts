@@ -3,6 +3,7 @@
  * published values (Cvitanovic, Davidchack & Siminos 2010, SIAM J. Appl. Dyn. Syst. 9, 1-33).
  */
 import { KsSolver, seedKsNoise, spinUpSteps } from './ks';
+import { Rng } from './random';
 
 export interface LyapunovOptions {
   readonly length: number;
@@ -81,4 +82,133 @@ export function estimateLyapunov(o: LyapunovOptions): LyapunovEstimate {
   const mean = perPair.reduce((x, y) => x + y, 0) / pairs;
   const sd = Math.sqrt(perPair.reduce((x, y) => x + (y - mean) ** 2, 0) / (pairs - 1));
   return { mean, stdErr: sd / Math.sqrt(pairs), perPair };
+}
+
+export interface EquilibriumSearchOptions {
+  readonly length: number;
+  readonly points: number;
+  /** Newton starts (each from a seeded antisymmetric state integrated for a while). */
+  readonly starts: number;
+  readonly seed: number;
+}
+
+export interface Equilibrium {
+  /** E = <u^2>/2 (Cvitanovic, Davidchack & Siminos 2010). */
+  readonly energy: number;
+  /** Euclidean norm of Im F over the coefficients at convergence, divided by n. */
+  readonly residual: number;
+  /** b_k with v_k = FFT(u)_k = i b_k, k = 1..n/2-1 (unnormalised, as in fft.ts). */
+  readonly coefficients: Float64Array;
+}
+
+/**
+ * Equilibria F(u) = -u u_x - u_xx - u_xxxx = 0 in the antisymmetric subspace u(-x) = -u(x)
+ * (pure sine series, v_k = i b_k), where the translation symmetry is broken so the Jacobian
+ * is regular. Damped Newton (finite-difference Jacobian, Gaussian elimination with partial
+ * pivoting, step halving) from `starts` seeded antisymmetric states advanced in time (the
+ * flow keeps the subspace). Converged solutions are returned, duplicates (same energy to
+ * 1e-8) removed, sorted by energy. The published L = 22 equilibria E1, E2, E3 lie in this
+ * subspace (Cvitanovic, Davidchack & Siminos 2010, sec. 4).
+ */
+export function antisymmetricEquilibria(o: EquilibriumSearchOptions): Equilibrium[] {
+  const { length: L, points: n } = o;
+  const K = n / 2;
+  const m = K - 1;
+  const sim = new KsSolver({ length: L, points: n, dt: 0.05, copies: 1 });
+  const k = sim.k;
+  const vr = new Float64Array(K + 1);
+  const vi = new Float64Array(K + 1);
+  const wr = new Float64Array(K + 1);
+  const wi = new Float64Array(K + 1);
+  // G(b)_k = Im F_k for v = i b: L_k b_k - (k/2) Re FFT(u^2)_k.
+  const G = (b: Float64Array, out: Float64Array): void => {
+    vr.fill(0);
+    vi.fill(0);
+    for (let j = 1; j < K; j++) vi[j] = b[j - 1]!;
+    sim.fft.squareOfSignal(vr, vi, wr, wi);
+    for (let j = 1; j < K; j++) out[j - 1] = sim.linear[j]! * vi[j]! - 0.5 * k[j]! * wr[j]!;
+  };
+  const norm = (x: Float64Array): number => Math.sqrt(x.reduce((s, v) => s + v * v, 0));
+  const rng = new Rng(`ks-equilibria/${o.seed}`);
+  const found: Equilibrium[] = [];
+  const g = new Float64Array(m);
+  const g2 = new Float64Array(m);
+  const J = new Float64Array(m * m);
+  for (let start = 0; start < o.starts; start++) {
+    sim.vRe.fill(0);
+    sim.vIm.fill(0);
+    for (let j = 1; j <= 4; j++) sim.vIm[j] = 0.5 * n * rng.normal();
+    const steps = 20 * (1 + (start % 10));
+    for (let i = 0; i < steps; i++) sim.step();
+    let b = new Float64Array(m);
+    for (let j = 1; j < K; j++) b[j - 1] = sim.vIm[j]!;
+    let converged = false;
+    let r = Infinity;
+    for (let it = 0; it < 50; it++) {
+      G(b, g);
+      r = norm(g);
+      if (r < 1e-9 * n) {
+        converged = true;
+        break;
+      }
+      for (let c = 0; c < m; c++) {
+        const h = 1e-7 * Math.max(1, Math.abs(b[c]!));
+        const bp = b.slice();
+        bp[c]! += h;
+        G(bp, g2);
+        for (let row = 0; row < m; row++) J[row * m + c] = (g2[row]! - g[row]!) / h;
+      }
+      const d = solveDense(J, g, m);
+      let t = 1;
+      for (let ls = 0; ls < 30; ls++) {
+        const bn = b.map((v, i) => v - t * d[i]!);
+        G(bn, g2);
+        if (norm(g2) < r) {
+          b = bn;
+          break;
+        }
+        t /= 2;
+      }
+    }
+    if (!converged) continue;
+    let e = 0;
+    for (let j = 0; j < m; j++) e += 2 * b[j]! ** 2; // Parseval over +-k
+    const energy = e / (n * n) / 2;
+    if (!found.some((f) => Math.abs(f.energy - energy) < 1e-8)) found.push({ energy, residual: r / n, coefficients: b });
+  }
+  return found.sort((a, b) => a.energy - b.energy);
+}
+
+/** Solve A x = rhs (A dense row-major m x m, copied) by Gaussian elimination with partial pivoting. */
+function solveDense(A: Float64Array, rhs: Float64Array, m: number): Float64Array {
+  const M = new Float64Array(m * (m + 1));
+  for (let r = 0; r < m; r++) {
+    for (let c = 0; c < m; c++) M[r * (m + 1) + c] = A[r * m + c]!;
+    M[r * (m + 1) + m] = rhs[r]!;
+  }
+  const w = m + 1;
+  for (let c = 0; c < m; c++) {
+    let p = c;
+    for (let r = c + 1; r < m; r++) if (Math.abs(M[r * w + c]!) > Math.abs(M[p * w + c]!)) p = r;
+    if (p !== c) {
+      for (let j = 0; j < w; j++) {
+        const t = M[c * w + j]!;
+        M[c * w + j] = M[p * w + j]!;
+        M[p * w + j] = t;
+      }
+    }
+    const piv = M[c * w + c]!;
+    for (let r = c + 1; r < m; r++) {
+      const f = M[r * w + c]! / piv;
+      if (f === 0) continue;
+      for (let j = c; j < w; j++) M[r * w + j]! -= f * M[c * w + j]!;
+    }
+  }
+  const x = new Float64Array(m);
+  for (let r = m - 1; r >= 0; r--) {
+    let s = M[r * w + m]!;
+    for (let j = r + 1; j < m; j++) s -= M[r * w + j]! * x[j]!;
+    x[r] = s / M[r * w + r]!;
+  }
+  return x;
 }
