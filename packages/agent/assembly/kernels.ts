@@ -113,6 +113,29 @@ export function gemm(
   a: usize, sai: i32, sap: i32, b: usize, c: usize, M: i32, K: i32, N: i32,
   bias: usize, act: i32, d: usize, dkind: i32,
 ): void {
+  // Specialised copies for the epilogues the networks use (constants fold away the epilogue's
+  // branches, which matters when K is small); any other combination takes the general path.
+  if (d == 0) {
+    if (bias == 0) {
+      if (act == ACT_LINEAR) gemmBody(a, sai, sap, b, c, M, K, N, 0, ACT_LINEAR, 0, ACT_LINEAR);
+      else gemmBody(a, sai, sap, b, c, M, K, N, 0, act, 0, dkind);
+    } else if (act == ACT_RELU) gemmBody(a, sai, sap, b, c, M, K, N, bias, ACT_RELU, 0, ACT_LINEAR);
+    else if (act == ACT_TANH) gemmBody(a, sai, sap, b, c, M, K, N, bias, ACT_TANH, 0, ACT_LINEAR);
+    else gemmBody(a, sai, sap, b, c, M, K, N, bias, ACT_LINEAR, 0, ACT_LINEAR);
+  } else if (bias == 0 && act == ACT_LINEAR) {
+    if (dkind == ACT_RELU) gemmBody(a, sai, sap, b, c, M, K, N, 0, ACT_LINEAR, d, ACT_RELU);
+    else if (dkind == ACT_TANH) gemmBody(a, sai, sap, b, c, M, K, N, 0, ACT_LINEAR, d, ACT_TANH);
+    else gemmBody(a, sai, sap, b, c, M, K, N, 0, ACT_LINEAR, d, ACT_LINEAR);
+  } else {
+    gemmBody(a, sai, sap, b, c, M, K, N, bias, act, d, dkind);
+  }
+}
+
+// @ts-ignore: decorator
+@inline function gemmBody(
+  a: usize, sai: i32, sap: i32, b: usize, c: usize, M: i32, K: i32, N: i32,
+  bias: usize, act: i32, d: usize, dkind: i32,
+): void {
   const rs = <usize>sai << 2; // byte stride between rows of A
   const ps = <usize>sap << 2; // byte stride along the reduction index of A
   const ldb = <usize>N << 2; // byte stride between rows of B, C and D
