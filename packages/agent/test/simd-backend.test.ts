@@ -187,7 +187,7 @@ describe.each(['strict', 'fast'] as const)('two threads (%s build)', (mode) => {
       n.setParams(p0);
       return { n, opt: be.createAdam(n, ADAM) };
     });
-    for (const batch of [256, 13, 8, 9]) {
+    for (const batch of [256, 13, 9]) {
       const x = randomArray(batch * 17, rng);
       const dy = randomArray(batch, rng);
       const outs = nets.map(({ n, opt }) => {
@@ -201,5 +201,6 @@ describe.each(['strict', 'fast'] as const)('two threads (%s build)', (mode) => {
     }
     two.dispose();
     expect(() => createSimdBackend({ threads: 3 as 2 })).toThrow(/simd.threads/);
-  });
+    // Each hand-off can wait a scheduler tick when the cores are busy: allow for a loaded machine.
+  }, 60_000);
 });
