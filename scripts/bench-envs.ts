@@ -7,8 +7,15 @@
  *     and >= 130,000 copy-steps/s for 16 copies at n = 64);
  *   - "ks-env": environment decisions (m = 5 solver steps each, plus sampling of P and
  *     actuator power every step, forcing, observations), reported as solver copy-steps/s.
- * Usage: npx tsx scripts/bench-envs.ts [--seconds S]  (S = measuring time per figure, default 2)
+ * Kolmogorov flow (packages/envs/src/kolmogorov.ts), Re = 40, n = 4, 64^2 (dt 0.02) and 128^2
+ * (dt 0.01):
+ *   - "kolmogorov-solver": bare ETDRK4 steps (4 stages x 2 inverse + 2 forward real 2-D FFTs
+ *     of 2 fields each), one copy and a batch of 8;
+ *   - "kolmogorov-env": decisions of the tiled env (4 x 2 tiles, 25 steps each, tile mean-flow
+ *     and jet-power sampling every step, forcing, observations), as solver copy-steps/s.
+ * Usage: npx tsx scripts/bench-envs.ts [--seconds S] [--only ks|kolmogorov]  (S = measuring time per figure, default 2)
  */
+import { KolmogorovEnv, KolmogorovSolver, parseKolmogorovConfig, seedKolmogorov } from '../packages/envs/src/kolmogorov';
 import { KsEnv, KsSolver, parseKsConfig, seedKsNoise } from '../packages/envs/src/ks';
 
 const secArg = process.argv.indexOf('--seconds');
@@ -36,7 +43,10 @@ function timeIt(run: (reps: number) => void, unitsPerRep: number): number {
   return (target * unitsPerRep) / best;
 }
 
-const cases: Array<[number, number]> = [
+const onlyArg = process.argv.indexOf('--only');
+const only = onlyArg >= 0 ? process.argv[onlyArg + 1] : undefined;
+
+const cases: Array<[number, number]> = only === 'kolmogorov' ? [] : [
   [64, 22],
   [256, 88],
 ];
@@ -73,6 +83,47 @@ for (const [n, L] of cases) {
         controlSteps: m,
         copies,
         decisions_per_s: Math.round(rate / m),
+        copy_steps_per_s: Math.round(rate),
+      }),
+    );
+  }
+}
+
+for (const [points, dt] of only === 'ks' ? [] : [
+  [64, 0.02],
+  [128, 0.01],
+] as Array<[number, number]>) {
+  const physics = { re: 40, forcingWavenumber: 4, aspect: 1, grid: [points, points] as [number, number], dt, linearDrag: 0 };
+  for (const copies of [1, 8]) {
+    const s = new KolmogorovSolver(physics, copies);
+    for (let b = 0; b < copies; b++) seedKolmogorov(s, b, b + 1, 1);
+    s.advance(Math.round(10 / dt));
+    const rate = timeIt((reps) => s.advance(reps), copies);
+    console.log(
+      JSON.stringify({ env: 'kolmogorov', what: 'kolmogorov-solver', points, re: 40, n: 4, dt, copies, steps_per_s: Math.round(rate / copies), copy_steps_per_s: Math.round(rate) }),
+    );
+  }
+  for (const copies of [1, 8]) {
+    const cfg = parseKolmogorovConfig({ kind: 'kolmogorov', points: [points, points], dt, controlSteps: 25, tiles: [4, 2], spinUpTime: 10, episodeLength: 1_000_000 });
+    const env = new KolmogorovEnv(cfg, { copies, cf0: 1, i0: 1 });
+    env.reset(Array.from({ length: copies }, (_, b) => b + 1));
+    const acts = new Float32Array(copies * 8).map((_, i) => 0.5 * Math.sin(i));
+    const m = cfg.controlSteps;
+    const rate = timeIt((reps) => {
+      for (let i = 0; i < reps; i++) env.step(acts);
+    }, copies * m);
+    console.log(
+      JSON.stringify({
+        env: 'kolmogorov',
+        what: 'kolmogorov-env',
+        points,
+        re: 40,
+        n: 4,
+        dt,
+        tiles: [4, 2],
+        controlSteps: m,
+        copies,
+        decisions_per_s: +(rate / m).toFixed(2),
         copy_steps_per_s: Math.round(rate),
       }),
     );
