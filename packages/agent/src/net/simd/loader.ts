@@ -8,9 +8,13 @@
  *   module is compiled (newer Node versions have it on, and the flag is then not needed).
  *
  * Compiled modules are cached per file (they are immutable); every `loadSimdKernels` call makes
- * its own memory and instance, so backends share no mutable state.
+ * its own memory and instance, so backends share no mutable state. When build/wasm is missing or
+ * older than the sources (its SHA-256 stamp differs), the kernels are rebuilt first.
  */
-import { readFileSync } from 'node:fs';
+import { spawnSync } from 'node:child_process';
+import { createHash } from 'node:crypto';
+import { existsSync, readFileSync } from 'node:fs';
+import { fileURLToPath } from 'node:url';
 import v8 from 'node:v8';
 import { WasmHeap } from './heap';
 import { wasmApi, type WasmModule } from './wasm-api';
@@ -54,9 +58,40 @@ export interface SimdKernels {
 }
 
 const wasmDir = new URL('../../../build/wasm/', import.meta.url);
+const assemblyDir = new URL('../../../assembly/', import.meta.url);
 const modules = new Map<string, WasmModule>();
+let buildChecked = false;
+
+/** SHA-256 of the kernel sources, as assembly/build.mjs stamps it (null outside a source tree). */
+function sourceHash(): string | null {
+  const files = ['build.mjs', 'kernels.ts'].map((f) => new URL(f, assemblyDir));
+  if (!files.every((f) => existsSync(f))) return null;
+  const h = createHash('sha256');
+  for (const f of files) h.update(readFileSync(f));
+  return h.digest('hex');
+}
+
+/**
+ * Make sure build/wasm matches the kernel sources: when the stamp is missing or stale (a
+ * checkout updated without `pnpm install`), run assembly/build.mjs once (a few seconds).
+ */
+function ensureBuild(): void {
+  if (buildChecked) return;
+  const want = sourceHash();
+  const stamp = new URL('source.sha256', wasmDir);
+  const have = existsSync(stamp) ? readFileSync(stamp, 'utf8').trim() : null;
+  if (want !== null && have !== want) {
+    const script = fileURLToPath(new URL('build.mjs', assemblyDir));
+    const r = spawnSync(process.execPath, [script], { encoding: 'utf8' });
+    if (r.status !== 0) {
+      throw new Error(`simd backend: building the kernels failed (node ${script}): ${r.stderr || r.error?.message || 'unknown error'}`);
+    }
+  }
+  buildChecked = true;
+}
 
 function readBuild(file: string): Uint8Array {
+  ensureBuild();
   try {
     return readFileSync(new URL(file, wasmDir));
   } catch (e) {
