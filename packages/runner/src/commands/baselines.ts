@@ -47,7 +47,7 @@ export function episodeSeeds(base: number, purpose: string, count: number): numb
 export function runBaselines(cfg: RunConfig, o: BaselinesOptions): BaselinesResult {
   const { env: parsed, evaluation: ev, baselines: bl } = cfg;
   const ref = parsed.kind.reference(parsed.config, { cacheDir: o.cacheDir, onEvent: o.onEvent });
-  const env = parsed.kind.create(parsed.config, { copies: ev.copies, reference: ref.mean, onEvent: o.onEvent });
+  const env = parsed.kind.create(parsed.config, { copies: ev.copies, reference: ref.mean, cacheDir: o.cacheDir, onEvent: o.onEvent });
   const dragName = env.spec.dragName;
   const episodes = o.episodes ?? ev.episodes;
   const evalOpts = { episodeLength: ev.episodeLength, discardDecisions: ev.discardDecisions };
