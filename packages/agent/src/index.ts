@@ -1,1 +1,11 @@
 export * from './net/types';
+export { initMlpParams, FINAL_LAYER_INIT } from './net/init';
+export { createTfjsBackend, TFJS_ENGINES, type TfjsBackend, type TfjsChoice, type TfjsEngine, type TransposeMode } from './net/tfjs';
+export { createNetBackend } from './net/select';
+export { agentConfigSchema, parseAgentConfig, PRESETS, BACKEND_CHOICES, type AgentConfig, type BackendChoice, type ExplorationConfig } from './config';
+export { Agent, createAgent, restoreAgent, AGENT_STATE_KIND, type AgentOptions, type AgentState, type PolicySnapshot } from './agent';
+export { Td3, createTd3Networks, type Td3Settings, type Td3Networks, type UpdateResult } from './td3';
+export { ReplayBuffer, createBatch, type Batch, type ReplayState } from './replay';
+export { RunningNormalizer, type NormalizerState } from './normalizer';
+export { ExplorationNoise, type NoiseState } from './noise';
+export { encodeContainer, decodeContainer, getBlock, crc32, type Bundle, type BlockArray, type Dtype, type Json } from './container';
