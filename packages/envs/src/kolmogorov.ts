@@ -69,6 +69,25 @@ export function laminarAmplitude(re: number, n: number): number {
   return re / (n * n);
 }
 
+function checkPhysics(p: KolmogorovPhysics): void {
+  const bad = (what: string, v: unknown): never => {
+    throw new Error(`KolmogorovSolver: ${what}, got ${JSON.stringify(v)}`);
+  };
+  const [nx, ny] = p.grid;
+  for (const [name, v] of [['grid[0]', nx], ['grid[1]', ny]] as const) {
+    if (!Number.isInteger(v) || v < 8 || (v & (v - 1)) !== 0) bad(`${name} must be a power of two >= 8`, v);
+  }
+  if (!(p.re > 0 && Number.isFinite(p.re))) bad('re must be positive and finite', p.re);
+  if (!Number.isInteger(p.forcingWavenumber) || p.forcingWavenumber < 1 || 3 * p.forcingWavenumber >= ny) {
+    bad(`forcingWavenumber must be an integer with 1 <= n and 3n < grid[1] (${ny})`, p.forcingWavenumber);
+  }
+  if (!(p.aspect > 0 && Number.isFinite(p.aspect))) bad('aspect must be positive and finite', p.aspect);
+  if (!(p.dt > 0 && Number.isFinite(p.dt))) bad('dt must be positive and finite', p.dt);
+  if (!(p.linearDrag >= 0 && Number.isFinite(p.linearDrag))) bad('linearDrag must be >= 0 and finite', p.linearDrag);
+  const f = p.forcingAmplitude ?? 1;
+  if (!Number.isFinite(f)) bad('forcingAmplitude must be finite', f);
+}
+
 /** Domain diagnostics of one copy (area means). */
 export interface FlowBudget {
   /** Kinetic energy E = <|u|^2>/2. */
@@ -131,6 +150,8 @@ export class KolmogorovSolver implements NonlinearTerm {
   private readonly forcedMode: number;
 
   constructor(physics: KolmogorovPhysics, copies: number) {
+    checkPhysics(physics);
+    if (!Number.isInteger(copies) || copies < 1) throw new Error(`KolmogorovSolver: copies must be an integer >= 1, got ${copies}`);
     const [nx, ny] = physics.grid;
     const n = physics.forcingWavenumber;
     this.physics = physics;
@@ -366,8 +387,7 @@ export class KolmogorovSolver implements NonlinearTerm {
 
   /**
    * Set the jet forcing of every copy from the physical y-force f_y [ny][nx][B]
-   * (held until the next call): stores the dealiased curl i kx f_y_hat.
-   * `work` must have nx*ny*B entries; it is overwritten.
+   * (held until the next call): stores the dealiased curl i kx f_y_hat. `fy` is not modified.
    */
   setJetForce(fy: Float64Array): void {
     const { jetRe, jetIm, kx, mask } = this;

@@ -446,6 +446,9 @@ describe('KolmogorovEnv', () => {
     expect(() => parseKolmogorovConfig({ kind: 'kolmogorov', viscosity: 1 })).toThrow(/unknown key env\.viscosity/);
     expect(() => parseKolmogorovConfig({ kind: 'kolmogorov', reward: { beta: 2 } })).toThrow(/env\.reward\.beta.*got 2/);
     expect(() => new KolmogorovEnv(smallConfig(), { copies: 1, cf0: -1, i0: 1 })).toThrow(/cf0.*got -1/);
+    expect(() => new KolmogorovSolver(physics({ grid: [64, 48] }), 1)).toThrow(/grid\[1\] must be a power of two.*got 48/);
+    expect(() => new KolmogorovSolver(physics({ forcingWavenumber: 11, grid: [32, 32] }), 1)).toThrow(/forcingWavenumber.*got 11/);
+    expect(() => new KolmogorovSolver(physics(), 0)).toThrow(/copies.*got 0/);
   });
 });
 
