@@ -17,8 +17,8 @@
  * Storage. Each network keeps its parameters as ONE flat tensor in the order of
  * `net/types.ts` (W_0, b_0, W_1, b_1, ...), so that Adam and Polyak averaging cost a dozen
  * tensor operations per network instead of a dozen per layer (tfjs pays a fixed cost of
- * roughly 5-15 us per operation on wasm). Per-layer views (slices, reshaped) are cut lazily
- * after the parameters change.
+ * roughly 5-15 us per operation on wasm). Per-layer views (slices, reshaped) are cut again
+ * whenever the parameters change.
  *
  * Gradients are written by hand (a plain MLP; no tfjs autodiff). With y = act(x W + b):
  *   dZ = dY * act'(y)          act' from the OUTPUT y: relu -> [y > 0], tanh -> 1 - y^2, linear -> 1
@@ -266,11 +266,15 @@ class TfjsMlp implements Mlp {
     return views;
   }
 
-  /** Replace the flat parameters with `next` (a kept tensor) and drop the stale views. */
+  /**
+   * Replace the flat parameters with `next` (a kept tensor) and cut the per-layer views at
+   * once (every change is followed by a use, and eager views keep the tensor count constant).
+   */
   replaceFlat(next: tf.Tensor1D): void {
     this.flat.dispose();
     this.flat = next;
     this.dropViews();
+    this.layers();
   }
 
   private dropViews(): void {
