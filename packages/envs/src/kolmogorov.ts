@@ -26,7 +26,7 @@
  *
  * Arrays (B copies, batch fastest, as the stepper and `Fft2` expect):
  *   spectral state omega  Float64Array re/im [modes][B], modes = nx * nky, nky = ny/2+1,
- *                         mode k = ix*nky + my (layout and FFT conventions of fft2.ts)
+ *                         mode k = my*nx + ix (layout and FFT conventions of fft2.ts)
  *   physical fields       Float64Array [ny][nx][C]; grid point (i, j) at x = i Lx/nx, y = j Ly/ny
  * Diagnostics are area means <.> = (1/(Lx Ly)) integral over the box:
  *   E = <|u|^2>/2, I = <u . sin(n y) e_x> (energy input), D = Re^-1 <|grad u|^2> = Re^-1 <omega^2>,
@@ -178,7 +178,7 @@ export class KolmogorovSolver implements NonlinearTerm {
     for (let ix = 0; ix < nx; ix++) {
       const mx = ix <= nx / 2 ? ix : ix - nx;
       for (let my = 0; my < this.nky; my++) {
-        const k = ix * this.nky + my;
+        const k = my * nx + ix;
         const kx = (2 * Math.PI * mx) / this.lx;
         const ky = (2 * Math.PI * my) / this.ly;
         const k2 = kx * kx + ky * ky;
@@ -212,7 +212,7 @@ export class KolmogorovSolver implements NonlinearTerm {
       this.kolRe[k]! *= this.mask[k]!;
       this.kolIm[k]! *= this.mask[k]!;
     }
-    this.forcedMode = n; // ix = 0, my = n
+    this.forcedMode = n * nx; // my = n, ix = 0
   }
 
   /**
@@ -349,7 +349,7 @@ export class KolmogorovSolver implements NonlinearTerm {
     let z2 = 0;
     for (let ix = 0; ix < nx; ix++) {
       for (let my = 0; my < nky; my++) {
-        const k = ix * nky + my;
+        const k = my * nx + ix;
         const w = my === 0 || 2 * my === ny ? 1 : 2;
         const r = this.omRe[k * B + copy]!;
         const i = this.omIm[k * B + copy]!;
@@ -374,10 +374,10 @@ export class KolmogorovSolver implements NonlinearTerm {
    * Viscous dissipation D = Re^-1 <omega^2> of every copy into out [B] (Parseval; no allocation).
    */
   dissipationAll(out: Float64Array): void {
-    const { nx, ny, nky, copies: B } = this;
+    const { nx, ny, copies: B } = this;
     out.fill(0, 0, B);
     for (let k = 0, i = 0; k < this.modes; k++) {
-      const my = k % nky;
+      const my = Math.floor(k / nx);
       const w = my === 0 || 2 * my === ny ? 1 : 2;
       for (let b = 0; b < B; b++, i++) out[b]! += w * (this.omRe[i]! * this.omRe[i]! + this.omIm[i]! * this.omIm[i]!);
     }

@@ -45,7 +45,7 @@ describe('Fft2 (2-D real FFT on fft.ts)', () => {
         const mx = ix <= nx / 2 ? ix : ix - nx;
         for (let my = 0; my < ny / 2 + 1; my++) {
           const [r, s] = directDft2(f, nx, ny, (mx + nx) % nx, my);
-          const p = (ix * fft.nky + my) * fields + c;
+          const p = (my * nx + ix) * fields + c;
           expect(Math.abs(re[p]! - r)).toBeLessThan(tol);
           expect(Math.abs(im[p]! - s)).toBeLessThan(tol);
         }
@@ -71,7 +71,7 @@ describe('Fft2 (2-D real FFT on fft.ts)', () => {
     for (let ix = 0; ix < nx; ix++) {
       for (let my = 0; my < full.nky; my++) {
         for (let c = 0; c < 2; c++) {
-          const p = (ix * full.nky + my) * 2 + c;
+          const p = (my * nx + ix) * 2 + c;
           expect(br[p]).toBe(my < 6 ? ar[p] : 0);
           expect(bi[p]).toBe(my < 6 ? ai[p] : 0);
           if (my >= 6) {
@@ -104,7 +104,7 @@ describe('Fft2 (2-D real FFT on fft.ts)', () => {
     for (let ix = 0; ix < nx; ix++) {
       for (let my = 0; my <= ny / 2; my++) {
         const w = my === 0 || my === ny / 2 ? 1 : 2;
-        const p = ix * fft.nky + my;
+        const p = my * nx + ix;
         e += w * (re[p]! ** 2 + im[p]! ** 2);
       }
     }

@@ -218,7 +218,7 @@ describe('KolmogorovSolver: energy budget', () => {
     s.evaluate(s.omRe, s.omIm, nRe, nIm);
     let dEdt = 0;
     for (let k = 0; k < M; k++) {
-      const w = k % s.nky === 0 ? 1 : 2;
+      const w = k < s.nx ? 1 : 2; // my = 0 row counts once
       const L = -(s.kx[k]! ** 2 + s.ky[k]! ** 2) / p.re - p.linearDrag;
       const tr = L * s.omRe[k]! + nRe[k]! * s.mask[k]!;
       const ti = L * s.omIm[k]! + nIm[k]! * s.mask[k]!;
@@ -265,7 +265,7 @@ function shiftCopy(s: KolmogorovSolver, from: number, to: number, cellsX: number
   for (let ix = 0; ix < s.nx; ix++) {
     const mx = ix <= s.nx / 2 ? ix : ix - s.nx;
     for (let my = 0; my < s.nky; my++) {
-      const k = ix * s.nky + my;
+      const k = my * s.nx + ix;
       // f(x - d) <-> F e^{-i k d}; the phase is a multiple of a quarter turn here, so exact.
       const turns = (((mx * cellsX) / s.nx + (my * cellsY) / s.ny) % 1 + 1) % 1;
       const [c, sn] = turns === 0 ? [1, 0] : turns === 0.25 ? [0, -1] : turns === 0.5 ? [-1, 0] : turns === 0.75 ? [0, 1] : [NaN, NaN];
