@@ -41,6 +41,7 @@ import { etdrk4Coefficients, Etdrk4Stepper, type NonlinearTerm } from './etdrk4'
 import { Fft2 } from './fft2';
 import { Rng } from './random';
 import { twoThirdsMask } from './spectral';
+import { checkCopy, checkSeed, clipActions, mod, TiledStepBuffers } from './tiled';
 
 // ---------------------------------------------------------------------------------------
 // Physics parameters and the batched solver
@@ -682,18 +683,11 @@ export class KolmogorovEnv implements TiledEnv {
   private readonly disAcc: Float64Array;
   private readonly rowSum: Float64Array;
   private readonly dissipationNow: Float64Array;
-  private readonly decisions: Int32Array;
   private readonly divergedNow: Uint8Array;
   private weight = 0;
   private spinSolver: KolmogorovSolver | null = null;
 
-  private readonly obs: Float32Array;
-  private readonly reward: Float32Array;
-  private readonly drag: Float64Array;
-  private readonly power: Float64Array;
-  private readonly done: Uint8Array;
-  private readonly truncated: Uint8Array;
-  private readonly diverged: Uint8Array;
+  private readonly buf: TiledStepBuffers;
   private readonly inputRatio: Float64Array;
   private readonly dissipationRatio: Float64Array;
   private readonly domainDrag: Float64Array;
@@ -829,27 +823,14 @@ export class KolmogorovEnv implements TiledEnv {
     this.dissipationNow = new Float64Array(B);
     this.forcingWork = new Float64Array(B * T);
     this.tileMeanFlow = new Float64Array(B * T);
-    this.decisions = new Int32Array(B);
     this.divergedNow = new Uint8Array(B);
-    this.obs = new Float32Array(B * T * obsDim);
-    this.reward = new Float32Array(B * T);
-    this.drag = new Float64Array(B * T);
-    this.power = new Float64Array(B * T);
-    this.done = new Uint8Array(B);
-    this.truncated = new Uint8Array(B);
-    this.diverged = new Uint8Array(B);
+    this.buf = new TiledStepBuffers(B, T, obsDim);
     this.inputRatio = new Float64Array(B);
     this.dissipationRatio = new Float64Array(B);
     this.domainDrag = new Float64Array(B);
     this.opp = new Float64Array(B * T);
     this.out = {
-      obs: this.obs,
-      reward: this.reward,
-      drag: this.drag,
-      actuationPower: this.power,
-      done: this.done,
-      truncated: this.truncated,
-      diverged: this.diverged,
+      ...this.buf.out,
       inputRatio: this.inputRatio,
       dissipationRatio: this.dissipationRatio,
       domainDrag: this.domainDrag,
@@ -861,7 +842,7 @@ export class KolmogorovEnv implements TiledEnv {
 
   reset(seeds: ArrayLike<number>): Float32Array {
     if (seeds.length !== this.B) throw new Error(`KolmogorovEnv.reset: expected ${this.B} seeds (one per copy), got ${seeds.length}`);
-    for (let b = 0; b < this.B; b++) checkSeed(seeds[b]!, `seeds[${b}]`);
+    for (let b = 0; b < this.B; b++) checkSeed('KolmogorovEnv.reset', seeds[b]!, `seeds[${b}]`);
     const s = this.solver;
     this.amp.fill(0);
     this.applyForce();
@@ -869,7 +850,7 @@ export class KolmogorovEnv implements TiledEnv {
     s.sampler = null;
     s.advance(Math.round(this.config.spinUpTime / this.config.dt));
     s.sampler = (vel) => this.sample(vel, this.weight);
-    this.decisions.fill(0);
+    this.buf.decisions.fill(0);
     this.divergedNow.fill(0);
     for (let b = 0; b < this.B; b++) this.check(b, 'spin-up');
     this.solver.computeVelocity();
@@ -877,10 +858,8 @@ export class KolmogorovEnv implements TiledEnv {
   }
 
   resetCopy(copy: number, seed: number): void {
-    if (!Number.isInteger(copy) || copy < 0 || copy >= this.B) {
-      throw new Error(`KolmogorovEnv.resetCopy: copy must be an integer in [0, ${this.B}), got ${copy}`);
-    }
-    checkSeed(seed, 'seed');
+    checkCopy('KolmogorovEnv.resetCopy', copy, this.B);
+    checkSeed('KolmogorovEnv.resetCopy', seed, 'seed');
     // Spin up alone in a one-copy solver: the batch-inner arithmetic is identical per copy,
     // so the result equals the batched reset bit for bit.
     this.spinSolver ??= new KolmogorovSolver(kolmogorovPhysics(this.config), 1);
@@ -890,7 +869,7 @@ export class KolmogorovEnv implements TiledEnv {
     this.solver.copyStateFrom(one, 0, copy);
     for (let t = 0; t < this.T; t++) this.amp[copy * this.T + t] = 0;
     this.applyForce();
-    this.decisions[copy] = 0;
+    this.buf.decisions[copy] = 0;
     this.divergedNow[copy] = 0;
     this.check(copy, 'spin-up');
     this.solver.computeVelocity();
@@ -899,21 +878,13 @@ export class KolmogorovEnv implements TiledEnv {
 
   observe(): Float32Array {
     this.writeObs();
-    return this.obs;
+    return this.buf.obs;
   }
 
   step(actions: Float32Array): KolmogorovStepOut {
     const { B, T } = this;
     const c = this.config;
-    if (actions.length !== B * T) {
-      throw new Error(`KolmogorovEnv.step: actions must have shape [B, T, actDim] = [${B}, ${T}, 1] (${B * T} values), got ${actions.length}`);
-    }
-    const aMax = c.actionBound;
-    for (let i = 0; i < B * T; i++) {
-      const a = actions[i]!;
-      if (Number.isNaN(a)) throw new Error(`KolmogorovEnv.step: actions[${i}] is NaN (copy ${Math.floor(i / T)}, tile ${i % T})`);
-      this.amp[i] = a > aMax ? aMax : a < -aMax ? -aMax : a;
-    }
+    clipActions('KolmogorovEnv', actions, this.amp, c.actionBound, T);
     this.applyForce();
     const m = c.controlSteps;
     this.uAcc.fill(0);
@@ -938,24 +909,17 @@ export class KolmogorovEnv implements TiledEnv {
     const invP0 = 1 / this.i0;
     const beta = c.reward.beta;
     const pen = c.reward.actuationPenalty;
-    this.done.fill(0);
-    this.truncated.fill(0);
-    this.diverged.fill(0);
+    const { drag, actuationPower: power, reward } = this.buf;
+    this.buf.beginDecision();
     for (let b = 0; b < B; b++) {
-      this.decisions[b]! += 1;
       if (this.divergedNow[b]) {
-        this.diverged[b] = 1;
-        this.done[b] = 1;
+        this.buf.markDiverged(b, c.reward.onDivergence);
         this.inputRatio[b] = NaN;
         this.dissipationRatio[b] = NaN;
         this.domainDrag[b] = NaN;
-        for (let t = 0; t < T; t++) {
-          const i = b * T + t;
-          this.drag[i] = NaN;
-          this.power[i] = NaN;
+        for (let i = b * T; i < (b + 1) * T; i++) {
           this.forcingWork[i] = NaN;
           this.tileMeanFlow[i] = NaN;
-          this.reward[i] = c.reward.onDivergence;
         }
         continue;
       }
@@ -966,11 +930,11 @@ export class KolmogorovEnv implements TiledEnv {
         const U = this.uAcc[i]! * inv;
         this.tileMeanFlow[i] = U;
         const Ue = U > floor ? U : floor;
-        this.drag[i] = cfScale / (Ue * Ue);
-        this.power[i] = this.costAcc[i]! * inv * invP0;
+        drag[i] = cfScale / (Ue * Ue);
+        power[i] = this.costAcc[i]! * inv * invP0;
         this.forcingWork[i] = this.workAcc[i]! * inv * invP0;
-        dDomain += this.drag[i]!;
-        sDomain += 1 - this.drag[i]! - pen * this.power[i]!;
+        dDomain += drag[i]!;
+        sDomain += 1 - drag[i]! - pen * power[i]!;
       }
       sDomain /= T;
       this.domainDrag[b] = dDomain / T;
@@ -978,13 +942,9 @@ export class KolmogorovEnv implements TiledEnv {
       this.dissipationRatio[b] = (this.disAcc[b]! * inv) / lam;
       for (let t = 0; t < T; t++) {
         const i = b * T + t;
-        const sTile = 1 - this.drag[i]! - pen * this.power[i]!;
-        this.reward[i] = (1 - beta) * sTile + beta * sDomain;
+        reward[i] = (1 - beta) * (1 - drag[i]! - pen * power[i]!) + beta * sDomain;
       }
-      if (this.decisions[b]! >= c.episodeLength) {
-        this.done[b] = 1;
-        this.truncated[b] = 1;
-      }
+      this.buf.countDecision(b, c.episodeLength);
     }
     this.divergedNow.fill(0);
     this.writeObs();
@@ -1006,9 +966,7 @@ export class KolmogorovEnv implements TiledEnv {
    * (i, j) = (x_i, y_j) at field*nx*ny + j*nx + i.
    */
   snapshot(copy: number): Float64Array {
-    if (!Number.isInteger(copy) || copy < 0 || copy >= this.B) {
-      throw new Error(`KolmogorovEnv.snapshot: copy must be an integer in [0, ${this.B}), got ${copy}`);
-    }
+    checkCopy('KolmogorovEnv.snapshot', copy, this.B);
     const { nx, ny, B } = this;
     const out = new Float64Array(3 * nx * ny);
     out.set(this.solver.vorticity(copy), 0);
@@ -1125,7 +1083,7 @@ export class KolmogorovEnv implements TiledEnv {
     this.onEvent?.({
       kind: 'diverged',
       copy: b,
-      message: `kolmogorov copy ${b} diverged during ${phase} after ${this.decisions[b]} decisions: ${finite ? `energy ${e.toPrecision(4)} > ${bound}` : 'non-finite vorticity'}`,
+      message: `kolmogorov copy ${b} diverged during ${phase} after ${this.buf.decisions[b]} decisions: ${finite ? `energy ${e.toPrecision(4)} > ${bound}` : 'non-finite vorticity'}`,
     });
   }
 
@@ -1137,26 +1095,18 @@ export class KolmogorovEnv implements TiledEnv {
     const V = this.solver.velocity;
     const C = 2 * B;
     for (let b = 0; b < B; b++) {
-      const dead = this.divergedNow[b] === 1 || this.diverged[b] === 1;
+      const dead = this.divergedNow[b] === 1 || this.buf.diverged[b] === 1;
+      const obs = this.buf.obs;
       for (let t = 0; t < T; t++) {
         const o = (b * T + t) * obsDim;
         for (let s = 0; s < S; s++) {
           const p = this.sensorPoint[t * S + s]! * C;
-          this.obs[o + s] = dead ? 0 : V[p + b]!;
-          this.obs[o + S + s] = dead ? 0 : V[p + B + b]!;
+          obs[o + s] = dead ? 0 : V[p + b]!;
+          obs[o + S + s] = dead ? 0 : V[p + B + b]!;
         }
       }
     }
   }
-}
-
-function mod(a: number, n: number): number {
-  const r = a % n;
-  return r < 0 ? r + n : r;
-}
-
-function checkSeed(seed: number, what: string): void {
-  if (!Number.isFinite(seed)) throw new Error(`KolmogorovEnv: ${what} must be a finite number, got ${seed}`);
 }
 
 // ---------------------------------------------------------------------------------------
