@@ -82,14 +82,18 @@ const adamSchema = z.strictObject({
   eps: positive.optional().describe('Denominator offset (default 1e-8, Kingma & Ba 2015).'),
 });
 
-/** Network backends the agent can be asked for; "auto" picks the fastest that starts. */
-export const BACKEND_CHOICES = ['auto', 'tfjs-node', 'tfjs-wasm', 'tfjs-cpu'] as const;
+/**
+ * Network backends the agent can be asked for; "auto" picks the fastest that starts.
+ * simd-fma / simd: WebAssembly SIMD kernels (net/simd), with fused multiply-add (fast) or the
+ * plain build whose results are bit-identical on every machine (strict).
+ */
+export const BACKEND_CHOICES = ['auto', 'simd-fma', 'simd', 'tfjs-node', 'tfjs-wasm', 'tfjs-cpu'] as const;
 export type BackendChoice = (typeof BACKEND_CHOICES)[number];
 
 /** The raw (user-facing) schema: every field optional, unknown keys rejected. */
 const rawSchema = z.strictObject({
   algo: z.enum(['td3', 'ddpg']).default('td3').describe('Algorithm preset: td3 (default) or ddpg (TD3 with one critic, delay 1, no smoothing).'),
-  backend: z.enum(BACKEND_CHOICES).default('auto').describe('Network backend: auto (default: tfjs-node, else tfjs-wasm, else tfjs-cpu) or one by name.'),
+  backend: z.enum(BACKEND_CHOICES).default('auto').describe('Network backend: auto (default: simd-fma, else simd, else tfjs-node, tfjs-wasm, tfjs-cpu) or one by name; simd is the bit-reproducible build.'),
   gamma: z.number().min(0).lt(1).optional().describe('Discount factor (default 0.99, both papers).'),
   tau: z.number().gt(0).max(1).optional().describe('Polyak rate of the target networks (td3 0.005, ddpg 0.001).'),
   batchSize: z.number().int().min(1).max(1 << 20).optional().describe('Transitions per update (td3 256, ddpg 64).'),

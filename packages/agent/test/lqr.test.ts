@@ -6,6 +6,7 @@
  */
 import { Matrix } from 'ml-matrix';
 import { describe, expect, it } from 'vitest';
+import { createNetBackend } from '../src/net/select';
 import { dlqr, LQR_PROTOCOL, trainLqr } from './helpers/lqr';
 
 const A = new Matrix([
@@ -62,7 +63,7 @@ describe('Riccati solver (ml-matrix)', () => {
   });
 });
 
-describe('TD3 on the double-integrator LQR', () => {
+describe.each(['tfjs-wasm', 'simd-fma', 'simd'] as const)('TD3 on the double-integrator LQR (%s backend)', (backendName) => {
   it(
     'learns a policy whose gain is within 10% of the discounted Riccati gain',
     async () => {
@@ -78,7 +79,7 @@ describe('TD3 on the double-integrator LQR', () => {
       // (scripts/check-lqr-seeds.ts prints them; the learned gains sit a few per cent above the
       // optimum on average); this seed is one deterministic run.
       const optimal = dlqr(A, B, I2, R1, LQR_PROTOCOL.gamma).K; // [0.38818, 1.18173]
-      const run = await trainLqr(1);
+      const run = await trainLqr(1, { backend: await createNetBackend(backendName) });
       for (let j = 0; j < 2; j++) {
         const k = optimal.get(0, j);
         expect(Math.abs(run.gain[j]! - k) / k).toBeLessThan(0.12);

@@ -10,6 +10,8 @@
  */
 import { Rng } from '@tilewise/envs';
 import { describe, expect, it } from 'vitest';
+import { parseAgentConfig } from '../src/config';
+import { createNetBackend } from '../src/net/select';
 import { createSimdBackend, type SimdMode } from '../src/net/simd';
 import type { AdamConfig, MlpSpec } from '../src/net/types';
 import { bits, fround32, initParams, maxAbs, maxAbsDiff, refAdamStep, refBackward, refForward, refPolyak } from './simd-reference';
@@ -32,6 +34,19 @@ describe('build selection', () => {
     // Node >= 20.19 (the workspace's engines field) validates relaxed SIMD once the V8 flag is set.
     expect(fast.name).toBe('simd-fma');
     expect(() => createSimdBackend({ mode: 'quick' as SimdMode })).toThrow(/mode must be "strict" or "fast"/);
+  });
+
+  it('is what the agent config selects: auto -> simd-fma, "simd" -> the strict build, each logged', async () => {
+    const lines: string[] = [];
+    const auto = await createNetBackend(parseAgentConfig({}).backend, { log: (m) => lines.push(m) });
+    expect(auto.name).toBe('simd-fma');
+    const strict = await createNetBackend(parseAgentConfig({ backend: 'simd' }).backend, { log: (m) => lines.push(m) });
+    expect(strict.name).toBe('simd');
+    expect((await createNetBackend(parseAgentConfig({ backend: 'simd-fma' }).backend)).name).toBe('simd-fma');
+    expect(lines).toEqual([
+      'network backend: simd-fma (fast mode: relaxed-SIMD FMA validated; 1 thread)',
+      'network backend: simd (strict mode: plain SIMD, bit-reproducible; 1 thread)',
+    ]);
   });
 
   it('createAdam rejects a network from another backend and a bad config', () => {

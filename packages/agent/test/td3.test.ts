@@ -7,8 +7,8 @@
 import { Rng } from '@tilewise/envs';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { initMlpParams } from '../src/net/init';
-import { createTfjsBackend, type TfjsBackend } from '../src/net/tfjs';
-import type { MlpSpec } from '../src/net/types';
+import { createNetBackend } from '../src/net/select';
+import type { MlpSpec, NetBackend } from '../src/net/types';
 import { createBatch, type Batch } from '../src/replay';
 import { createTd3Networks, Td3, type Td3Networks, type Td3Settings } from '../src/td3';
 
@@ -30,7 +30,7 @@ function randomBatch(seed: string): Batch {
   return b;
 }
 
-function networks(backend: TfjsBackend, settings: Td3Settings, seed: string): Td3Networks {
+function networks(backend: NetBackend, settings: Td3Settings, seed: string): Td3Networks {
   const init = new Rng(seed);
   // Wider final-layer init than the default so the first steps move every output.
   const actor = initMlpParams(actorSpec, init, 0.3);
@@ -68,11 +68,11 @@ function expectSameNetworks(a: Td3Networks, b: Td3Networks): void {
   a.criticTargets.forEach((c, j) => expect(c.getParams()).toEqual(b.criticTargets[j]!.getParams()));
 }
 
-describe('td3.ts against the written-out algorithms (tfjs-wasm)', () => {
-  let backend: TfjsBackend;
+describe.each(['tfjs-wasm', 'simd-fma', 'simd'] as const)('td3.ts against the written-out algorithms (%s)', (backendName) => {
+  let backend: NetBackend;
   const live: Array<{ dispose(): void }> = [];
   beforeAll(async () => {
-    backend = await createTfjsBackend('tfjs-wasm');
+    backend = await createNetBackend(backendName);
   });
   afterAll(() => live.forEach((x) => x.dispose()));
 
