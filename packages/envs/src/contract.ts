@@ -90,6 +90,23 @@ export interface TiledEnv {
   oppositionSignal(): Float64Array;
   /** The physical field of one copy, for plots (layout documented by each surrogate). */
   snapshot(copy: number): Float64Array;
+  /**
+   * Optional: the full dynamic state of every copy at a decision boundary (solver fields,
+   * decision counters, pending flags), as copies. With `setState` on an environment built
+   * from the same config and copy count, the two continue bit for bit alike. Training
+   * checkpoints need it; an environment without it cannot be checkpointed.
+   */
+  getState?(): EnvState;
+  /** Optional: restore a state from `getState` (same config and copies, else it throws naming the mismatch). */
+  setState?(state: EnvState): void;
+}
+
+/** An environment's saved state: JSON-serialisable metadata and named arrays (copies). */
+export interface EnvState {
+  /** Format tag, kind and the shape facts `setState` checks, e.g. { kind, copies, points }. */
+  readonly meta: { readonly [key: string]: string | number | boolean | null };
+  /** Named state arrays (the env's layouts, documented by each surrogate). */
+  readonly arrays: { readonly [name: string]: Float64Array | Int32Array | Uint8Array };
 }
 
 /**

@@ -26,7 +26,7 @@
  * docs/ks.md. This surrogate is not a channel flow; its "drag" is an analogue.
  */
 import { z } from 'zod';
-import type { EnvEvent, EnvSpec, ObsLayoutEntry, StepOut, TiledEnv } from './contract';
+import type { EnvEvent, EnvSpec, EnvState, ObsLayoutEntry, StepOut, TiledEnv } from './contract';
 import { parseConfig } from './config';
 import { Etdrk4Stepper, etdrk4Coefficients, type NonlinearTerm } from './etdrk4';
 import { RealFft } from './fft';
@@ -773,6 +773,64 @@ export class KsEnv implements TiledEnv {
     return this.amp;
   }
 
+  /**
+   * The dynamic state at a decision boundary (copies): spectra vRe, vIm [B, n/2+1], forcing
+   * spectra fRe, fIm [B, n/2+1], applied amplitudes amp [B, A], decisions [B] and the pending
+   * divergence flags [B]. Everything else (sampled fields, P and projections of the last
+   * sample, observations) is a function of these and is recomputed by `setState`.
+   */
+  getState(): EnvState {
+    const s = this.solver;
+    return {
+      meta: { format: KS_STATE_FORMAT, kind: 'ks', copies: this.B, points: this.n, length: this.config.length, actuators: this.A },
+      arrays: {
+        vRe: s.vRe.slice(),
+        vIm: s.vIm.slice(),
+        fRe: s.fRe.slice(),
+        fIm: s.fIm.slice(),
+        amp: this.amp.slice(),
+        decisions: this.decisions.slice(),
+        divergedNow: this.divergedNow.slice(),
+      },
+    };
+  }
+
+  /** Restore a state from `getState` of a KsEnv with the same config and copies (else throws naming the field). */
+  setState(state: EnvState): void {
+    const m = state?.meta;
+    const expect: Record<string, unknown> = {
+      format: KS_STATE_FORMAT,
+      kind: 'ks',
+      copies: this.B,
+      points: this.n,
+      length: this.config.length,
+      actuators: this.A,
+    };
+    for (const [k, v] of Object.entries(expect)) {
+      if (m?.[k] !== v) throw new Error(`KsEnv.setState: saved ${k} ${JSON.stringify(m?.[k])} differs from this env's ${JSON.stringify(v)}`);
+    }
+    const s = this.solver;
+    const put = (name: string, dst: Float64Array | Int32Array | Uint8Array): void => {
+      const src = state.arrays[name];
+      if (!src || src.constructor !== dst.constructor || src.length !== dst.length) {
+        throw new Error(
+          `KsEnv.setState: array "${name}" must be a ${dst.constructor.name} of length ${dst.length}, got ${src ? `${src.constructor.name} of length ${src.length}` : 'nothing'}`,
+        );
+      }
+      dst.set(src as never);
+    };
+    put('vRe', s.vRe);
+    put('vIm', s.vIm);
+    put('fRe', s.fRe);
+    put('fIm', s.fIm);
+    put('amp', this.amp);
+    put('decisions', this.decisions);
+    put('divergedNow', this.divergedNow);
+    // A copy flagged as diverged was zeroed when flagged; sampling it gives the zeros it had.
+    this.sample();
+    this.writeObs();
+  }
+
   // --- internals ------------------------------------------------------------------------
 
   /**
@@ -879,6 +937,9 @@ export class KsEnv implements TiledEnv {
     }
   }
 }
+
+/** Format of `KsEnv.getState`. */
+const KS_STATE_FORMAT = 1;
 
 function checkSeed(seed: number, what: string): void {
   if (!Number.isFinite(seed)) throw new Error(`KsEnv: ${what} must be a finite number, got ${seed}`);

@@ -276,3 +276,64 @@ describe('P0 measurement', () => {
     expect(r.ci95).toBeLessThan(r.mean);
   });
 });
+
+describe('KsEnv state (getState/setState)', () => {
+  /** Seeded actions in [-0.7, 0.7] (beyond the bound, so clipping is exercised). */
+  function actions(seed: number, n: number): Float32Array {
+    let x = seed;
+    return Float32Array.from({ length: n }, () => {
+      x = (x * 1103515245 + 12345) % 2147483648;
+      return (x / 2147483648 - 0.5) * 1.4;
+    });
+  }
+
+  it('round-trips exactly: a restored env continues bit for bit like the original', () => {
+    const c = cfg({ episodeLength: 50 });
+    const a = new KsEnv(c, { copies: 3, p0: P0 });
+    a.reset([5, 6, 7]);
+    for (let i = 0; i < 4; i++) a.step(actions(i + 1, 3 * 4));
+    const saved = a.getState();
+    const b = new KsEnv(c, { copies: 3, p0: P0 });
+    b.reset([1, 2, 3]); // a different state, overwritten below
+    b.setState(saved);
+    expect(Array.from(b.observe())).toEqual(Array.from(a.observe()));
+    for (let i = 0; i < 5; i++) {
+      const act = actions(100 + i, 3 * 4);
+      const oa = a.step(act);
+      const copyA = { obs: oa.obs.slice(), reward: oa.reward.slice(), drag: oa.drag.slice(), power: oa.actuationPower.slice(), done: oa.done.slice() };
+      const ob = b.step(act);
+      expect(Array.from(ob.obs)).toEqual(Array.from(copyA.obs));
+      expect(Array.from(ob.reward)).toEqual(Array.from(copyA.reward));
+      expect(Array.from(ob.drag)).toEqual(Array.from(copyA.drag));
+      expect(Array.from(ob.actuationPower)).toEqual(Array.from(copyA.power));
+      expect(Array.from(ob.done)).toEqual(Array.from(copyA.done));
+    }
+    expect(Array.from(b.snapshot(2))).toEqual(Array.from(a.snapshot(2)));
+    expect(Array.from(b.oppositionSignal())).toEqual(Array.from(a.oppositionSignal()));
+    // The saved arrays are copies: stepping the original did not change them.
+    const again = new KsEnv(c, { copies: 3, p0: P0 });
+    again.setState(saved);
+    expect(Array.from(again.solver.vRe)).not.toEqual(Array.from(a.solver.vRe));
+  });
+
+  it('keeps the decision counter: the episode ends at the same step after a restore', () => {
+    const c = cfg({ episodeLength: 5 });
+    const a = new KsEnv(c, { copies: 1, p0: P0 });
+    a.reset([9]);
+    for (let i = 0; i < 3; i++) a.step(new Float32Array(4));
+    const b = new KsEnv(c, { copies: 1, p0: P0 });
+    b.setState(a.getState());
+    expect(b.step(new Float32Array(4)).done[0]).toBe(0);
+    expect(b.step(new Float32Array(4)).done[0]).toBe(1);
+  });
+
+  it('rejects a state from another configuration or copy count, naming the field', () => {
+    const a = new KsEnv(cfg(), { copies: 2, p0: P0 });
+    a.reset([1, 2]);
+    const s = a.getState();
+    expect(() => new KsEnv(cfg(), { copies: 3, p0: P0 }).setState(s)).toThrow(/saved copies 2 differs from this env's 3/);
+    expect(() => new KsEnv(cfg({ points: 128 }), { copies: 2, p0: P0 }).setState(s)).toThrow(/saved points 64 differs/);
+    const bad = { meta: s.meta, arrays: { ...s.arrays, vRe: new Float64Array(3) } };
+    expect(() => new KsEnv(cfg(), { copies: 2, p0: P0 }).setState(bad)).toThrow(/array "vRe" must be a Float64Array of length 66, got Float64Array of length 3/);
+  });
+});
