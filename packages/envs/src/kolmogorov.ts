@@ -1233,6 +1233,9 @@ export interface FluctuationStats {
   readonly fractions: readonly [number, number, number, number];
   /** Each quadrant's contribution to <u'v'> (the four sum to <u'v'>). */
   readonly stress: readonly [number, number, number, number];
+  /** Quadrant fractions within each class, [classes][4] (Q1..Q4), and <u'v'> per class, [classes]. */
+  readonly classFractions: Float64Array;
+  readonly classStress: Float64Array;
   /** Joint histogram of (u', v'): `bins` x `bins` cells on [-range, range]^2, density per unit area, v rows, u fastest. */
   readonly histogram: { readonly bins: number; readonly range: number; readonly density: Float64Array };
 }
@@ -1279,6 +1282,8 @@ export function fluctuationStats(
   let suv = 0;
   const q = [0, 0, 0, 0];
   const st = [0, 0, 0, 0];
+  const classFractions = new Float64Array(classes * 4);
+  const classStress = new Float64Array(classes);
   for (let k = 0; k < N; k++) {
     const c = cls[k]!;
     const a = u[k]! - meanU[c]!;
@@ -1289,6 +1294,13 @@ export function fluctuationStats(
     const quad = a >= 0 ? (b >= 0 ? 0 : 3) : b >= 0 ? 1 : 2;
     q[quad]! += 1;
     st[quad]! += a * b;
+    classFractions[c * 4 + quad]! += 1;
+    classStress[c]! += a * b;
+  }
+  for (let c = 0; c < classes; c++) {
+    if (count[c]! === 0) continue;
+    for (let j = 0; j < 4; j++) classFractions[c * 4 + j]! /= count[c]!;
+    classStress[c]! /= count[c]!;
   }
   const stdU = Math.sqrt(suu / N);
   const stdV = Math.sqrt(svv / N);
@@ -1310,6 +1322,8 @@ export function fluctuationStats(
     correlation: suv / N / (stdU * stdV),
     fractions: [q[0]! / N, q[1]! / N, q[2]! / N, q[3]! / N],
     stress: [st[0]! / N, st[1]! / N, st[2]! / N, st[3]! / N],
+    classFractions,
+    classStress,
     histogram: { bins, range, density },
   };
 }

@@ -479,6 +479,10 @@ describe('fluctuationStats', () => {
     expect(Math.abs(st.fractions[3] - (0.5 - same))).toBeLessThan(tol);
     expect(Math.abs(st.correlation - rho)).toBeLessThan(0.01);
     expect(Math.abs(st.stdU - 2)).toBeLessThan(0.02);
+    for (let c = 0; c < 3; c++) {
+      expect(Math.abs(st.classFractions[c * 4]! - same)).toBeLessThan(tol * Math.sqrt(3));
+      expect(Math.abs(st.classStress[c]! - rho * 2)).toBeLessThan(0.03); // <u'v'> = 2 rho per class
+    }
     const sumStress = st.stress.reduce((x, y) => x + y, 0);
     expect(Math.abs(sumStress - st.correlation * st.stdU * st.stdV)).toBeLessThan(1e-12);
     // The histogram is a density: it integrates to the fraction inside the range.
