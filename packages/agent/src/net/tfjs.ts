@@ -14,15 +14,18 @@
  * selects its engine when created; creating a backend for another engine while networks of
  * the first are alive throws, rather than silently moving tensors between engines.
  *
- * Storage. Each network keeps its parameters as ONE flat tensor in the order of
- * `net/types.ts` (W_0, b_0, W_1, b_1, ...), so that Adam and Polyak averaging cost a dozen
- * tensor operations per network instead of a dozen per layer (tfjs pays a fixed cost of
- * roughly 5-15 us per operation on wasm). Per-layer views (slices, reshaped) are cut again
- * whenever the parameters change.
+ * Storage. Each network keeps one tensor per weight matrix and bias (W_0, b_0, W_1, b_1, ...;
+ * the flat order of `net/types.ts` only exists in getParams/setParams). A single flat tensor
+ * with per-layer slices would let Adam run as a dozen operations per network instead of a
+ * dozen per tensor, but on the wasm engine every Slice copies its WHOLE input out of wasm
+ * memory first (readSync), so cutting six views out of a 70k-parameter vector cost more than
+ * the optimiser step it saved (measured; see docs/benchmarks.md).
  *
  * Gradients are written by hand (a plain MLP; no tfjs autodiff). With y = act(x W + b):
  *   dZ = dY * act'(y)          act' from the OUTPUT y: relu -> [y > 0], tanh -> 1 - y^2, linear -> 1
  *   dW = x^T dZ,  db = 1^T dZ,  dx = dZ W^T
+ * For the first layer, x^T is built in JavaScript when the input is uploaded (a tfjs Transpose
+ * on wasm costs about as much as a product of the same size).
  * On the wasm engine, matMul with transposeA/transposeB runs 10-25x slower than the plain
  * product (see docs/benchmarks.md), so by default the transpose is made explicitly first
  * (`transpose: "explicit"`); `"flag"` passes the transpose flags to matMul (kept for the
@@ -209,18 +212,20 @@ function checkArray(x: Float32Array, batch: number, width: number, where: string
 class TfjsMlp implements Mlp {
   readonly spec: MlpSpec;
   readonly paramCount: number;
-  /** Flat parameters [paramCount]; replaced (never mutated) on every change. */
-  flat: tf.Tensor1D;
-  /** Flat gradient of the last backward [paramCount]. */
-  grad: tf.Tensor1D;
-  private views: { w: tf.Tensor2D[]; b: tf.Tensor1D[] } | null = null;
+  /** Parameters in the flat order W_0, b_0, W_1, b_1, ...; W_l [n(l), n(l+1)], b_l [n(l+1)]. Replaced, never mutated. */
+  params: tf.Tensor[];
+  /** Gradient of the last backward, same shapes and order as `params`. */
+  grads: tf.Tensor[];
   /** Activations of the last forward: acts[0] the input [B, n0], acts[l+1] the output of layer l. */
   private acts: tf.Tensor2D[] = [];
+  /** The last forward's input, transposed in JavaScript on upload [n0, B] (saves a tfjs transpose). */
+  private inputT: tf.Tensor2D | null = null;
   private batch = 0;
   private ones: tf.Tensor2D | null = null;
   private yForward = new Float32Array(0);
   private yPredict = new Float32Array(0);
   private dx = new Float32Array(0);
+  private xT = new Float32Array(0);
   private disposed = false;
 
   constructor(
@@ -231,8 +236,8 @@ class TfjsMlp implements Mlp {
     checkMlpSpec(spec);
     this.spec = { sizes: [...spec.sizes], hidden: spec.hidden, output: spec.output };
     this.paramCount = mlpParamCount(spec);
-    this.flat = tf.keep(tf.zeros([this.paramCount]));
-    this.grad = tf.keep(tf.zeros([this.paramCount]));
+    this.params = this.shapes().map((sh) => tf.keep(tf.zeros(sh)));
+    this.grads = this.shapes().map((sh) => tf.keep(tf.zeros(sh)));
     liveNets[engine]++;
   }
 
@@ -240,65 +245,42 @@ class TfjsMlp implements Mlp {
     return this.spec.sizes.length - 1;
   }
 
+  /** Shapes of the parameter tensors in flat order. */
+  shapes(): number[][] {
+    const s = this.spec.sizes;
+    const out: number[][] = [];
+    for (let l = 0; l < this.layerCount; l++) out.push([s[l]!, s[l + 1]!], [s[l + 1]!]);
+    return out;
+  }
+
   private alive(where: string): void {
     if (this.disposed) throw new Error(`tfjs mlp: ${where} after dispose`);
   }
 
-  /** Per-layer W [n(l), n(l+1)] and b [n(l+1)], sliced from the flat parameters when stale. */
-  private layers(): { w: tf.Tensor2D[]; b: tf.Tensor1D[] } {
-    if (this.views) return this.views;
-    const s = this.spec.sizes;
-    const views = tf.tidy(() => {
-      const w: tf.Tensor2D[] = [];
-      const b: tf.Tensor1D[] = [];
-      let off = 0;
-      for (let l = 0; l < this.layerCount; l++) {
-        const nin = s[l]!;
-        const nout = s[l + 1]!;
-        w.push(tf.keep(tf.reshape(tf.slice(this.flat, [off], [nin * nout]), [nin, nout])));
-        off += nin * nout;
-        b.push(tf.keep(tf.slice(this.flat, [off], [nout])));
-        off += nout;
-      }
-      return { w, b };
-    });
-    this.views = views;
-    return views;
-  }
-
-  /**
-   * Replace the flat parameters with `next` (a kept tensor) and cut the per-layer views at
-   * once (every change is followed by a use, and eager views keep the tensor count constant).
-   */
-  replaceFlat(next: tf.Tensor1D): void {
-    this.flat.dispose();
-    this.flat = next;
-    this.dropViews();
-    this.layers();
-  }
-
-  private dropViews(): void {
-    if (!this.views) return;
-    for (const t of this.views.w) t.dispose();
-    for (const t of this.views.b) t.dispose();
-    this.views = null;
+  /** Replace the parameter tensors with `next` (kept tensors, same shapes). */
+  replaceParams(next: tf.Tensor[]): void {
+    for (const t of this.params) t.dispose();
+    this.params = next;
   }
 
   private dropActs(): void {
     for (const t of this.acts) t.dispose();
     this.acts = [];
+    this.inputT?.dispose();
+    this.inputT = null;
   }
 
   private run(input: tf.Tensor2D): tf.Tensor2D[] {
-    const { w, b } = this.layers();
     const out: tf.Tensor2D[] = [input];
     let a = input;
     for (let l = 0; l < this.layerCount; l++) {
+      const w = this.params[2 * l] as tf.Tensor2D;
+      const bias = this.params[2 * l + 1]!;
       const act = l === this.layerCount - 1 ? this.spec.output : this.spec.hidden;
       if (act === 'relu' || act === 'linear') {
-        a = tf.fused.matMul({ a, b: w[l]!, bias: b[l]!, activation: act }) as tf.Tensor2D;
+        a = tf.fused.matMul({ a, b: w, bias, activation: act }) as tf.Tensor2D;
       } else {
-        a = applyActivation(act, tf.fused.matMul({ a, b: w[l]!, bias: b[l]! }) as tf.Tensor2D);
+        a = applyActivation(act, tf.fused.matMul({ a, b: w, bias }) as tf.Tensor2D);
       }
       out.push(a);
     }
@@ -313,6 +295,11 @@ class TfjsMlp implements Mlp {
     this.dropActs();
     const input = x.slice(0, batch * n0);
     this.acts = tf.tidy(() => this.run(tf.tensor2d(input, [batch, n0]))).map((t) => tf.keep(t));
+    if (this.transpose === 'explicit') {
+      if (this.xT.length !== batch * n0) this.xT = new Float32Array(batch * n0);
+      for (let r = 0; r < batch; r++) for (let j = 0; j < n0; j++) this.xT[j * batch + r] = input[r * n0 + j]!;
+      this.inputT = tf.keep(tf.tensor2d(this.xT.slice(), [n0, batch]));
+    }
     this.batch = batch;
     if (this.yForward.length !== batch * nL) this.yForward = new Float32Array(batch * nL);
     this.yForward.set(this.acts[this.layerCount]!.dataSync() as Float32Array);
@@ -352,36 +339,49 @@ class TfjsMlp implements Mlp {
     checkArray(dy, B, s[L]!, 'tfjs mlp backward: dy');
     const dyc = dy.slice(0, B * s[L]!);
     const ones = this.onesRow(B);
-    const { w } = this.layers();
     const flag = this.transpose === 'flag';
     const result = tf.tidy(() => {
       let dA: tf.Tensor2D = tf.tensor2d(dyc, [B, s[L]!]);
-      const parts: tf.Tensor1D[] = new Array<tf.Tensor1D>(2 * L);
+      const grads: tf.Tensor[] = new Array<tf.Tensor>(2 * L);
       for (let l = L - 1; l >= 0; l--) {
         const act = l === L - 1 ? this.spec.output : this.spec.hidden;
         const dZ = activationGrad(act, this.acts[l + 1]!, dA);
         const x = this.acts[l]!;
-        const dW = flag ? tf.matMul(x, dZ, true, false) : tf.matMul(tf.transpose(x), dZ);
-        parts[2 * l] = tf.reshape(dW, [-1]);
-        parts[2 * l + 1] = tf.reshape(tf.matMul(ones, dZ), [-1]);
-        if (l > 0 || inputGrad) dA = flag ? tf.matMul(dZ, w[l]!, false, true) : tf.matMul(dZ, tf.transpose(w[l]!));
+        const w = this.params[2 * l] as tf.Tensor2D;
+        if (flag) {
+          grads[2 * l] = tf.matMul(x, dZ, true, false);
+        } else {
+          grads[2 * l] = tf.matMul(l === 0 ? this.inputT! : tf.transpose(x), dZ);
+        }
+        grads[2 * l + 1] = tf.reshape(tf.matMul(ones, dZ), [s[l + 1]!]);
+        if (l > 0 || inputGrad) dA = flag ? tf.matMul(dZ, w, false, true) : tf.matMul(dZ, tf.transpose(w));
       }
-      const g = tf.concat(parts) as tf.Tensor1D;
-      return inputGrad ? [g, dA] : [g];
+      return inputGrad ? [...grads, dA] : grads;
     });
-    this.grad.dispose();
-    this.grad = tf.keep(result[0] as tf.Tensor1D);
+    for (const g of this.grads) g.dispose();
+    this.grads = result.slice(0, 2 * L).map((t) => tf.keep(t));
     if (!inputGrad) return null;
-    const dxT = result[1]!;
+    const dxT = result[2 * L]!;
     if (this.dx.length !== B * s[0]!) this.dx = new Float32Array(B * s[0]!);
     this.dx.set(dxT.dataSync() as Float32Array);
     dxT.dispose();
     return this.dx;
   }
 
+  /** Concatenate per-layer tensors into one flat Float32Array (a copy). */
+  private flatten(ts: tf.Tensor[]): Float32Array {
+    const out = new Float32Array(this.paramCount);
+    let off = 0;
+    for (const t of ts) {
+      out.set(t.dataSync() as Float32Array, off);
+      off += t.size;
+    }
+    return out;
+  }
+
   getParams(): Float32Array {
     this.alive('getParams');
-    return Float32Array.from(this.flat.dataSync() as Float32Array);
+    return this.flatten(this.params);
   }
 
   setParams(params: Float32Array): void {
@@ -389,12 +389,19 @@ class TfjsMlp implements Mlp {
     if (!(params instanceof Float32Array) || params.length !== this.paramCount) {
       throw new Error(`tfjs mlp setParams: expected a Float32Array of length ${this.paramCount}, got length ${params?.length}`);
     }
-    this.replaceFlat(tf.keep(tf.tensor1d(params.slice())));
+    let off = 0;
+    const next = this.shapes().map((sh) => {
+      const n = sh.reduce((a, b) => a * b, 1);
+      const t = tf.keep(tf.tensor(params.slice(off, off + n), sh));
+      off += n;
+      return t;
+    });
+    this.replaceParams(next);
   }
 
   getGrads(): Float32Array {
     this.alive('getGrads');
-    return Float32Array.from(this.grad.dataSync() as Float32Array);
+    return this.flatten(this.grads);
   }
 
   polyakInto(target: Mlp, tau: number): void {
@@ -406,17 +413,19 @@ class TfjsMlp implements Mlp {
       throw new Error(`tfjs mlp polyakInto: target sizes [${target.spec.sizes}] differ from [${this.spec.sizes}]`);
     }
     if (!(tau >= 0 && tau <= 1)) throw new Error(`tfjs mlp polyakInto: tau must lie in [0, 1], got ${tau}`);
-    const next = tf.tidy(() => tf.add(tf.mul(tf.scalar(tau), this.flat), tf.mul(tf.scalar(1 - tau), target.flat)) as tf.Tensor1D);
-    target.replaceFlat(tf.keep(next));
+    const next = tf.tidy(() => {
+      const a = tf.scalar(tau);
+      const b = tf.scalar(1 - tau);
+      return this.params.map((p, k) => tf.add(tf.mul(a, p), tf.mul(b, target.params[k]!)));
+    });
+    target.replaceParams(next.map((t) => tf.keep(t)));
   }
 
   dispose(): void {
     if (this.disposed) return;
     this.dropActs();
-    this.dropViews();
     this.ones?.dispose();
-    this.flat.dispose();
-    this.grad.dispose();
+    for (const t of [...this.params, ...this.grads]) t.dispose();
     this.disposed = true;
     liveNets[this.engine]--;
   }
@@ -425,7 +434,7 @@ class TfjsMlp implements Mlp {
 // --- optimiser ------------------------------------------------------------------------------
 
 /**
- * Adam (Kingma & Ba 2015, ICLR, Algorithm 1) on the flat parameter tensor:
+ * Adam (Kingma & Ba 2015, ICLR, Algorithm 1) on each parameter tensor:
  *   m <- b1 m + (1 - b1) g;  v <- b2 v + (1 - b2) g^2
  *   theta <- theta - (lr / (1 - b1^t)) * m / (sqrt(v) / sqrt(1 - b2^t) + eps)
  * which is Algorithm 1's m_hat / (sqrt(v_hat) + eps) with the bias corrections folded into
@@ -433,9 +442,11 @@ class TfjsMlp implements Mlp {
  */
 class TfjsAdam implements Adam {
   readonly config: AdamConfig;
-  private m: tf.Tensor1D;
-  private v: tf.Tensor1D;
+  private m: tf.Tensor[];
+  private v: tf.Tensor[];
   private t = 0;
+  /** Constant scalars b1, 1 - b1, b2, 1 - b2, eps, uploaded once. */
+  private readonly k: tf.Scalar[];
   private disposed = false;
 
   constructor(
@@ -448,34 +459,48 @@ class TfjsAdam implements Adam {
     if (!(config.beta1 >= 0 && config.beta1 < 1)) throw new Error(`tfjs adam: config.beta1 must lie in [0, 1), got ${config.beta1}`);
     if (!(config.beta2 >= 0 && config.beta2 < 1)) throw new Error(`tfjs adam: config.beta2 must lie in [0, 1), got ${config.beta2}`);
     this.config = { ...config };
-    this.m = tf.keep(tf.zeros([net.paramCount]));
-    this.v = tf.keep(tf.zeros([net.paramCount]));
+    this.m = net.shapes().map((sh) => tf.keep(tf.zeros(sh)));
+    this.v = net.shapes().map((sh) => tf.keep(tf.zeros(sh)));
+    this.k = [config.beta1, 1 - config.beta1, config.beta2, 1 - config.beta2, config.eps].map((x) => tf.keep(tf.scalar(x)));
   }
 
   step(): void {
     if (this.disposed) throw new Error('tfjs adam: step after dispose');
-    const { lr, beta1, beta2, eps } = this.config;
+    const { lr, beta1, beta2 } = this.config;
     this.t++;
     const bc1 = 1 - Math.pow(beta1, this.t);
     const bc2 = 1 - Math.pow(beta2, this.t);
     const net = this.net;
-    const [m, v, p] = tf.tidy(() => {
-      const g = net.grad;
-      const m = tf.add(tf.mul(tf.scalar(beta1), this.m), tf.mul(tf.scalar(1 - beta1), g));
-      const v = tf.add(tf.mul(tf.scalar(beta2), this.v), tf.mul(tf.scalar(1 - beta2), tf.square(g)));
-      const denom = tf.add(tf.div(tf.sqrt(v), tf.scalar(Math.sqrt(bc2))), tf.scalar(eps));
-      const p = tf.sub(net.flat, tf.mul(tf.scalar(lr / bc1), tf.div(m, denom)));
-      return [m, v, p] as tf.Tensor1D[];
-    }) as [tf.Tensor1D, tf.Tensor1D, tf.Tensor1D];
-    this.m.dispose();
-    this.v.dispose();
-    this.m = tf.keep(m);
-    this.v = tf.keep(v);
-    net.replaceFlat(tf.keep(p));
+    const [b1, omb1, b2, omb2, eps] = this.k as [tf.Scalar, tf.Scalar, tf.Scalar, tf.Scalar, tf.Scalar];
+    const out = tf.tidy(() => {
+      const sqrtBc2 = tf.scalar(Math.sqrt(bc2));
+      const stepSize = tf.scalar(lr / bc1);
+      return net.params.map((p, k) => {
+        const g = net.grads[k]!;
+        const m = tf.add(tf.mul(b1, this.m[k]!), tf.mul(omb1, g));
+        const v = tf.add(tf.mul(b2, this.v[k]!), tf.mul(omb2, tf.square(g)));
+        const denom = tf.add(tf.div(tf.sqrt(v), sqrtBc2), eps);
+        return [m, v, tf.sub(p, tf.mul(stepSize, tf.div(m, denom)))];
+      });
+    });
+    for (const t of [...this.m, ...this.v]) t.dispose();
+    this.m = out.map((x) => tf.keep(x[0]!));
+    this.v = out.map((x) => tf.keep(x[1]!));
+    net.replaceParams(out.map((x) => tf.keep(x[2]!)));
+  }
+
+  private flat(ts: tf.Tensor[]): Float32Array {
+    const out = new Float32Array(this.net.paramCount);
+    let off = 0;
+    for (const t of ts) {
+      out.set(t.dataSync() as Float32Array, off);
+      off += t.size;
+    }
+    return out;
   }
 
   getState(): AdamState {
-    return { step: this.t, m: Float32Array.from(this.m.dataSync() as Float32Array), v: Float32Array.from(this.v.dataSync() as Float32Array) };
+    return { step: this.t, m: this.flat(this.m), v: this.flat(this.v) };
   }
 
   setState(state: AdamState): void {
@@ -484,17 +509,24 @@ class TfjsAdam implements Adam {
     if (state.m.length !== n || state.v.length !== n) {
       throw new Error(`tfjs adam setState: moments must have length ${n}, got m ${state.m.length}, v ${state.v.length}`);
     }
-    this.m.dispose();
-    this.v.dispose();
-    this.m = tf.keep(tf.tensor1d(Float32Array.from(state.m)));
-    this.v = tf.keep(tf.tensor1d(Float32Array.from(state.v)));
+    const split = (flat: Float32Array) => {
+      let off = 0;
+      return this.net.shapes().map((sh) => {
+        const len = sh.reduce((a, b) => a * b, 1);
+        const t = tf.keep(tf.tensor(flat.slice(off, off + len), sh));
+        off += len;
+        return t;
+      });
+    };
+    for (const t of [...this.m, ...this.v]) t.dispose();
+    this.m = split(state.m);
+    this.v = split(state.v);
     this.t = state.step;
   }
 
   dispose(): void {
     if (this.disposed) return;
-    this.m.dispose();
-    this.v.dispose();
+    for (const t of [...this.m, ...this.v, ...this.k]) t.dispose();
     this.disposed = true;
   }
 }
