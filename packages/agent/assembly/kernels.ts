@@ -28,6 +28,9 @@ const ACT_LINEAR: i32 = 0;
 const ACT_RELU: i32 = 1;
 const ACT_TANH: i32 = 2;
 
+/** Tile side (elements) of the blocked transpose: 16 rows of output lines fit any cache set. */
+const TILE: i32 = 16;
+
 /** Start of free memory after the module's static data: the host allocator starts here. */
 export function heapBase(): usize {
   return __heap_base;
@@ -342,34 +345,45 @@ export function colsum(x: usize, M: i32, N: i32, out: usize): void {
   }
 }
 
-/** out [C, R] = transpose of x [R, C] (both row-major); 4x4 blocks through lane shuffles. */
+/**
+ * out [C, R] = transpose of x [R, C] (both row-major); 4x4 blocks through lane shuffles, visited
+ * in tiles of TILE x TILE so that the rows written at once (a power-of-two byte stride apart for
+ * power-of-two widths, which map to few cache sets) stay few enough to remain in cache.
+ */
 export function transpose(x: usize, R: i32, C: i32, out: usize): void {
   const R4 = R & ~3;
   const C4 = C & ~3;
   const lx = <usize>C << 2;
   const lo = <usize>R << 2;
-  for (let i = 0; i < R4; i += 4) {
-    for (let j = 0; j < C4; j += 4) {
-      const p = x + <usize>i * lx + (<usize>j << 2);
-      const r0 = v128.load(p);
-      const r1 = v128.load(p + lx);
-      const r2 = v128.load(p + 2 * lx);
-      const r3 = v128.load(p + 3 * lx);
-      // Interleave: t0 = [r0.0 r1.0 r0.1 r1.1], t1 = [r0.2 r1.2 r0.3 r1.3], same for r2/r3.
-      const t0 = v128.shuffle<f32>(r0, r1, 0, 4, 1, 5);
-      const t1 = v128.shuffle<f32>(r0, r1, 2, 6, 3, 7);
-      const t2 = v128.shuffle<f32>(r2, r3, 0, 4, 1, 5);
-      const t3 = v128.shuffle<f32>(r2, r3, 2, 6, 3, 7);
-      const q = out + <usize>j * lo + (<usize>i << 2);
-      v128.store(q, v128.shuffle<f32>(t0, t2, 0, 1, 4, 5));
-      v128.store(q + lo, v128.shuffle<f32>(t0, t2, 2, 3, 6, 7));
-      v128.store(q + 2 * lo, v128.shuffle<f32>(t1, t3, 0, 1, 4, 5));
-      v128.store(q + 3 * lo, v128.shuffle<f32>(t1, t3, 2, 3, 6, 7));
-    }
-    for (let j = C4; j < C; j++) {
-      for (let r = i; r < i + 4; r++) {
-        store<f32>(out + <usize>j * lo + (<usize>r << 2), load<f32>(x + <usize>r * lx + (<usize>j << 2)));
+  for (let ii = 0; ii < R4; ii += TILE) {
+    const iEnd = min(ii + TILE, R4);
+    for (let jj = 0; jj < C4; jj += TILE) {
+      const jEnd = min(jj + TILE, C4);
+      for (let i = ii; i < iEnd; i += 4) {
+        for (let j = jj; j < jEnd; j += 4) {
+          const p = x + <usize>i * lx + (<usize>j << 2);
+          const r0 = v128.load(p);
+          const r1 = v128.load(p + lx);
+          const r2 = v128.load(p + 2 * lx);
+          const r3 = v128.load(p + 3 * lx);
+          // Interleave: t0 = [r0.0 r1.0 r0.1 r1.1], t1 = [r0.2 r1.2 r0.3 r1.3], same for r2/r3.
+          const t0 = v128.shuffle<f32>(r0, r1, 0, 4, 1, 5);
+          const t1 = v128.shuffle<f32>(r0, r1, 2, 6, 3, 7);
+          const t2 = v128.shuffle<f32>(r2, r3, 0, 4, 1, 5);
+          const t3 = v128.shuffle<f32>(r2, r3, 2, 6, 3, 7);
+          const q = out + <usize>j * lo + (<usize>i << 2);
+          v128.store(q, v128.shuffle<f32>(t0, t2, 0, 1, 4, 5));
+          v128.store(q + lo, v128.shuffle<f32>(t0, t2, 2, 3, 6, 7));
+          v128.store(q + 2 * lo, v128.shuffle<f32>(t1, t3, 0, 1, 4, 5));
+          v128.store(q + 3 * lo, v128.shuffle<f32>(t1, t3, 2, 3, 6, 7));
+        }
       }
+    }
+  }
+  // Ragged edges element by element: columns C4..C of the first R4 rows, then rows R4..R.
+  for (let i = 0; i < R4; i++) {
+    for (let j = C4; j < C; j++) {
+      store<f32>(out + <usize>j * lo + (<usize>i << 2), load<f32>(x + <usize>i * lx + (<usize>j << 2)));
     }
   }
   for (let i = R4; i < R; i++) {
