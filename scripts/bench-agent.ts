@@ -17,7 +17,7 @@
  *                    explicit transpose followed by the plain product, for the update's shapes.
  *
  * Usage: npx tsx scripts/bench-agent.ts [--backend auto|tfjs-wasm|tfjs-cpu|tfjs-node]
- *        [--algo td3|ddpg] [--transpose explicit|flag|both] [--quick]
+ *        [--algo td3|ddpg] [--transpose explicit|flag|both] [--widths 64,256] [--quick]
  * `--backend` takes any name the agent config's `backend` field accepts.
  */
 import { Rng } from '../packages/envs/src/random';
@@ -38,6 +38,7 @@ if (!BACKEND_CHOICES.includes(backendChoice)) throw new Error(`--backend: expect
 const algo = option('algo', 'td3');
 if (algo !== 'td3' && algo !== 'ddpg') throw new Error(`--algo: expected td3 or ddpg, got ${algo}`);
 const transposeOpt = option('transpose', 'both');
+const widths = option('widths', '64,256').split(',').map(Number);
 const transposes: TransposeMode[] = transposeOpt === 'both' ? ['explicit', 'flag'] : [transposeOpt as TransposeMode];
 
 const OBS = 16;
@@ -117,7 +118,7 @@ const isTfjs = probe.name.startsWith('tfjs');
 for (const transpose of isTfjs ? transposes : (['explicit'] as TransposeMode[])) {
   const backend = isTfjs ? await createNetBackend(backendChoice, { transpose }) : probe;
   const tag = { backend: backend.name, ...(isTfjs ? { transpose } : {}) };
-  for (const width of [64, 256]) {
+  for (const width of widths) {
     const agent = await makeAgent(width, backend);
     // Updates come in pairs (critic-only, critic + actor) at policy delay 2: time even counts.
     const reps = quick ? (width === 64 ? 20 : 6) : width === 64 ? 100 : 30;

@@ -209,6 +209,28 @@ function checkArray(x: Float32Array, batch: number, width: number, where: string
   }
 }
 
+/** Concatenate tensors' values into one flat Float32Array of length n (a copy). */
+function flattenTensors(ts: readonly tf.Tensor[], n: number): Float32Array {
+  const out = new Float32Array(n);
+  let off = 0;
+  for (const t of ts) {
+    out.set(t.dataSync() as Float32Array, off);
+    off += t.size;
+  }
+  return out;
+}
+
+/** Cut a flat array into kept tensors of the given shapes (copies). */
+function splitToTensors(flat: Float32Array, shapes: readonly number[][]): tf.Tensor[] {
+  let off = 0;
+  return shapes.map((sh) => {
+    const n = sh.reduce((a, b) => a * b, 1);
+    const t = tf.keep(tf.tensor(flat.slice(off, off + n), sh));
+    off += n;
+    return t;
+  });
+}
+
 class TfjsMlp implements Mlp {
   readonly spec: MlpSpec;
   readonly paramCount: number;
@@ -368,20 +390,9 @@ class TfjsMlp implements Mlp {
     return this.dx;
   }
 
-  /** Concatenate per-layer tensors into one flat Float32Array (a copy). */
-  private flatten(ts: tf.Tensor[]): Float32Array {
-    const out = new Float32Array(this.paramCount);
-    let off = 0;
-    for (const t of ts) {
-      out.set(t.dataSync() as Float32Array, off);
-      off += t.size;
-    }
-    return out;
-  }
-
   getParams(): Float32Array {
     this.alive('getParams');
-    return this.flatten(this.params);
+    return flattenTensors(this.params, this.paramCount);
   }
 
   setParams(params: Float32Array): void {
@@ -389,19 +400,12 @@ class TfjsMlp implements Mlp {
     if (!(params instanceof Float32Array) || params.length !== this.paramCount) {
       throw new Error(`tfjs mlp setParams: expected a Float32Array of length ${this.paramCount}, got length ${params?.length}`);
     }
-    let off = 0;
-    const next = this.shapes().map((sh) => {
-      const n = sh.reduce((a, b) => a * b, 1);
-      const t = tf.keep(tf.tensor(params.slice(off, off + n), sh));
-      off += n;
-      return t;
-    });
-    this.replaceParams(next);
+    this.replaceParams(splitToTensors(params, this.shapes()));
   }
 
   getGrads(): Float32Array {
     this.alive('getGrads');
-    return this.flatten(this.grads);
+    return flattenTensors(this.grads, this.paramCount);
   }
 
   polyakInto(target: Mlp, tau: number): void {
@@ -489,18 +493,8 @@ class TfjsAdam implements Adam {
     net.replaceParams(out.map((x) => tf.keep(x[2]!)));
   }
 
-  private flat(ts: tf.Tensor[]): Float32Array {
-    const out = new Float32Array(this.net.paramCount);
-    let off = 0;
-    for (const t of ts) {
-      out.set(t.dataSync() as Float32Array, off);
-      off += t.size;
-    }
-    return out;
-  }
-
   getState(): AdamState {
-    return { step: this.t, m: this.flat(this.m), v: this.flat(this.v) };
+    return { step: this.t, m: flattenTensors(this.m, this.net.paramCount), v: flattenTensors(this.v, this.net.paramCount) };
   }
 
   setState(state: AdamState): void {
@@ -509,18 +503,9 @@ class TfjsAdam implements Adam {
     if (state.m.length !== n || state.v.length !== n) {
       throw new Error(`tfjs adam setState: moments must have length ${n}, got m ${state.m.length}, v ${state.v.length}`);
     }
-    const split = (flat: Float32Array) => {
-      let off = 0;
-      return this.net.shapes().map((sh) => {
-        const len = sh.reduce((a, b) => a * b, 1);
-        const t = tf.keep(tf.tensor(flat.slice(off, off + len), sh));
-        off += len;
-        return t;
-      });
-    };
     for (const t of [...this.m, ...this.v]) t.dispose();
-    this.m = split(state.m);
-    this.v = split(state.v);
+    this.m = splitToTensors(Float32Array.from(state.m), this.net.shapes());
+    this.v = splitToTensors(Float32Array.from(state.v), this.net.shapes());
     this.t = state.step;
   }
 
