@@ -49,7 +49,8 @@ function benchKernels(mode: SimdMode): void {
     const c = heap.allocF32(M * N);
     rng.fillUniform(heap.f32(a, M * K), -1, 1);
     rng.fillUniform(heap.f32(b, K * N), -1, 1);
-    const fn = tA ? () => k.gemm(a, 1, M, b, c, M, K, N, 0, 0, 0, 0) : () => k.gemm(a, K, 1, b, c, M, K, N, 0, 0, 0, 0);
+    const pack = heap.allocF32(4 * K);
+    const fn = tA ? () => k.gemm(a, 1, M, b, c, M, K, N, 0, 0, 0, 0, pack) : () => k.gemm(a, K, 1, b, c, M, K, N, 0, 0, 0, 0, 0);
     const reps = Math.max(10, Math.floor((quick ? 2e7 : 1e8) / (M * K * N)));
     const ms = time(fn, reps, quick ? 3 : 7);
     emit({ bench: 'simd-kernel', backend: build, op, M, K, N, gflops: +((2 * M * K * N) / ms / 1e6).toFixed(2), us: +(ms * 1000).toFixed(1) });

@@ -31,6 +31,9 @@ const ACT_TANH: i32 = 2;
 /** Tile side (elements) of the blocked transpose: 16 rows of output lines fit any cache set. */
 const TILE: i32 = 16;
 
+/** Smallest C width for which gemm packs A^T panels (they are reused by N / 8 column blocks). */
+const PACK_MIN_N: i32 = 16;
+
 /** Start of free memory after the module's static data: the host allocator starts here. */
 export function heapBase(): usize {
   return __heap_base;
@@ -109,47 +112,67 @@ export function usesFma(): i32 {
  * (0 linear, 1 relu, 2 tanh), then times act'(D[i, j]) of kind `dkind` (when d != 0; D has C's
  * shape and leading dimension).
  *
+ * `pack` (0 = none): scratch of 4 K floats, used to copy A's 4-row panels contiguous when
+ * sai = 1 and N >= PACK_MIN_N. A caller running gemm on several threads gives each its own.
+ *
  * Summation order: c[i, j] = (((0 + A(i,0) B(0,j)) + A(i,1) B(1,j)) + ...) + A(i,K-1) B(K-1,j),
  * then the epilogue; with FMA each step is fused.
  */
 export function gemm(
   a: usize, sai: i32, sap: i32, b: usize, c: usize, M: i32, K: i32, N: i32,
-  bias: usize, act: i32, d: usize, dkind: i32,
+  bias: usize, act: i32, d: usize, dkind: i32, pack: usize,
 ): void {
   // Specialised copies for the epilogues the networks use (constants fold away the epilogue's
   // branches, which matters when K is small); any other combination takes the general path.
   if (d == 0) {
     if (bias == 0) {
-      if (act == ACT_LINEAR) gemmBody(a, sai, sap, b, c, M, K, N, 0, ACT_LINEAR, 0, ACT_LINEAR);
-      else gemmBody(a, sai, sap, b, c, M, K, N, 0, act, 0, dkind);
-    } else if (act == ACT_RELU) gemmBody(a, sai, sap, b, c, M, K, N, bias, ACT_RELU, 0, ACT_LINEAR);
-    else if (act == ACT_TANH) gemmBody(a, sai, sap, b, c, M, K, N, bias, ACT_TANH, 0, ACT_LINEAR);
-    else gemmBody(a, sai, sap, b, c, M, K, N, bias, ACT_LINEAR, 0, ACT_LINEAR);
+      if (act == ACT_LINEAR) gemmBody(a, sai, sap, b, c, M, K, N, 0, ACT_LINEAR, 0, ACT_LINEAR, pack);
+      else gemmBody(a, sai, sap, b, c, M, K, N, 0, act, 0, dkind, pack);
+    } else if (act == ACT_RELU) gemmBody(a, sai, sap, b, c, M, K, N, bias, ACT_RELU, 0, ACT_LINEAR, pack);
+    else if (act == ACT_TANH) gemmBody(a, sai, sap, b, c, M, K, N, bias, ACT_TANH, 0, ACT_LINEAR, pack);
+    else gemmBody(a, sai, sap, b, c, M, K, N, bias, ACT_LINEAR, 0, ACT_LINEAR, pack);
   } else if (bias == 0 && act == ACT_LINEAR) {
-    if (dkind == ACT_RELU) gemmBody(a, sai, sap, b, c, M, K, N, 0, ACT_LINEAR, d, ACT_RELU);
-    else if (dkind == ACT_TANH) gemmBody(a, sai, sap, b, c, M, K, N, 0, ACT_LINEAR, d, ACT_TANH);
-    else gemmBody(a, sai, sap, b, c, M, K, N, 0, ACT_LINEAR, d, ACT_LINEAR);
+    if (dkind == ACT_RELU) gemmBody(a, sai, sap, b, c, M, K, N, 0, ACT_LINEAR, d, ACT_RELU, pack);
+    else if (dkind == ACT_TANH) gemmBody(a, sai, sap, b, c, M, K, N, 0, ACT_LINEAR, d, ACT_TANH, pack);
+    else gemmBody(a, sai, sap, b, c, M, K, N, 0, ACT_LINEAR, d, ACT_LINEAR, pack);
   } else {
-    gemmBody(a, sai, sap, b, c, M, K, N, bias, act, d, dkind);
+    gemmBody(a, sai, sap, b, c, M, K, N, bias, act, d, dkind, pack);
   }
 }
 
 // @ts-ignore: decorator
 @inline function gemmBody(
   a: usize, sai: i32, sap: i32, b: usize, c: usize, M: i32, K: i32, N: i32,
-  bias: usize, act: i32, d: usize, dkind: i32,
+  bias: usize, act: i32, d: usize, dkind: i32, pack: usize,
 ): void {
   const rs = <usize>sai << 2; // byte stride between rows of A
-  const ps = <usize>sap << 2; // byte stride along the reduction index of A
+  const ps0 = <usize>sap << 2; // byte stride along the reduction index of A
+  // Pack A's 4-row panels when its rows are adjacent (sai = 1, the A^T B case) and the panel is
+  // reused by enough column blocks: the panel's K values per row are then 16 bytes apart
+  // instead of sap * 4 (a power of two for power-of-two widths, which maps the whole panel to a
+  // few cache sets). Packing only moves data: the arithmetic and its order are unchanged.
+  const packing = pack != 0 && sai == 1 && N >= PACK_MIN_N;
   const ldb = <usize>N << 2; // byte stride between rows of B, C and D
   const N8 = N & ~7;
   const N4 = N & ~3;
   let i = 0;
   for (; i + 4 <= M; i += 4) {
-    const a0 = a + <usize>i * rs;
-    const a1 = a0 + rs;
-    const a2 = a1 + rs;
-    const a3 = a2 + rs;
+    let a0 = a + <usize>i * rs;
+    let ps = ps0;
+    if (packing) {
+      let src = a0;
+      let dst = pack;
+      for (let p = 0; p < K; p++) {
+        v128.store(dst, v128.load(src));
+        src += ps0;
+        dst += 16;
+      }
+      a0 = pack;
+      ps = 16;
+    }
+    const a1 = a0 + (packing ? 4 : rs);
+    const a2 = a1 + (packing ? 4 : rs);
+    const a3 = a2 + (packing ? 4 : rs);
     const crow = c + <usize>i * ldb;
     const drow = d ? d + <usize>i * ldb : 0;
     let j = 0;
@@ -236,6 +259,7 @@ export function gemm(
   for (; i < M; i++) {
     // Remaining rows one at a time.
     const a0 = a + <usize>i * rs;
+    const ps = ps0;
     const crow = c + <usize>i * ldb;
     const drow = d ? d + <usize>i * ldb : 0;
     let j = 0;

@@ -60,15 +60,18 @@ describe.each(['strict', 'fast'] as const)('kernels (%s build)', (mode) => {
     expect(s.build).toBe(mode === 'strict' ? 'simd' : 'simd-fma');
   });
 
-  it.each(shapes)('gemm A B and A^T B, (M,K,N) = (%i,%i,%i), within the dot-product error bound', (M, K, N) => {
+  it.each(shapes)('gemm A B and A^T B (plain and packed), (M,K,N) = (%i,%i,%i), within the dot-product error bound', (M, K, N) => {
     const a = s.buf(M * K);
     const b = s.buf(K * N);
     const c = s.buf(M * N);
-    for (const trans of [false, true]) {
+    const pack = s.buf(4 * K);
+    for (const [trans, packed] of [[false, false], [true, false], [true, true]] as const) {
       // trans: A is stored as its transpose, a row-major [K, M] matrix; A(i,p) = a[p*M + i].
+      // packed: gemm copies A's 4-row panels into a scratch first (same arithmetic).
       const Aip = (i: number, p: number): number => (trans ? a.v[p * M + i]! : a.v[i * K + p]!);
-      if (trans) s.k.gemm(a.ptr, 1, M, b.ptr, c.ptr, M, K, N, 0, ACT.linear, 0, 0);
-      else s.k.gemm(a.ptr, K, 1, b.ptr, c.ptr, M, K, N, 0, ACT.linear, 0, 0);
+      if (trans) s.k.gemm(a.ptr, 1, M, b.ptr, c.ptr, M, K, N, 0, ACT.linear, 0, 0, packed ? pack.ptr : 0);
+      else s.k.gemm(a.ptr, K, 1, b.ptr, c.ptr, M, K, N, 0, ACT.linear, 0, 0, 0);
+      const before = Float32Array.from(c.v);
       let worst = 0;
       let maxErr = 0;
       for (let i = 0; i < M; i++) {
@@ -84,8 +87,13 @@ describe.each(['strict', 'fast'] as const)('kernels (%s build)', (mode) => {
           worst = Math.max(worst, err / (gamma(K) * abs + Number.MIN_VALUE));
         }
       }
-      if (print) console.log(`${mode} ${trans ? 'AtB' : 'AB'} (${M},${K},${N}) max err ${maxErr.toExponential(1)}`);
+      if (print) console.log(`${mode} ${trans ? 'AtB' : 'AB'}${packed ? ' packed' : ''} (${M},${K},${N}) max err ${maxErr.toExponential(1)}`);
       expect(worst).toBeLessThanOrEqual(1);
+      if (packed) {
+        // Packing moves data only: bit-identical to the unpacked product.
+        s.k.gemm(a.ptr, 1, M, b.ptr, c.ptr, M, K, N, 0, ACT.linear, 0, 0, 0);
+        expect(c.v).toEqual(before);
+      }
     }
   });
 
@@ -101,7 +109,7 @@ describe.each(['strict', 'fast'] as const)('kernels (%s build)', (mode) => {
       const c = s.buf(M * N);
       const d = s.buf(M * N, -0.9, 0.9);
       // Bias and activation, no derivative.
-      s.k.gemm(a.ptr, K, 1, b.ptr, c.ptr, M, K, N, bias.ptr, ACT[actName], 0, 0);
+      s.k.gemm(a.ptr, K, 1, b.ptr, c.ptr, M, K, N, bias.ptr, ACT[actName], 0, 0, 0);
       const z = new Float64Array(M * N);
       const zabs = new Float64Array(M * N);
       for (let i = 0; i < M; i++) {
@@ -122,7 +130,7 @@ describe.each(['strict', 'fast'] as const)('kernels (%s build)', (mode) => {
         expect(Math.abs(c.v[q]! - actF[actName](z[q]!))).toBeLessThanOrEqual(tol);
       }
       // No bias, no activation, times act'(D): the backward epilogue.
-      s.k.gemm(a.ptr, K, 1, b.ptr, c.ptr, M, K, N, 0, ACT.linear, d.ptr, ACT[dName]);
+      s.k.gemm(a.ptr, K, 1, b.ptr, c.ptr, M, K, N, 0, ACT.linear, d.ptr, ACT[dName], 0);
       for (let q = 0; q < M * N; q++) {
         const zq = z[q]! - bias.v[q % N]!;
         const dq = dactF[dName](d.v[q]!);

@@ -31,7 +31,7 @@ export interface KernelExports {
   usesFma(): number;
   gemm(
     a: number, sai: number, sap: number, b: number, c: number, M: number, K: number, N: number,
-    bias: number, act: number, d: number, dkind: number,
+    bias: number, act: number, d: number, dkind: number, pack: number,
   ): void;
   actGrad(dy: number, y: number, out: number, n: number, kind: number): void;
   colsum(x: number, M: number, N: number, out: number): void;

@@ -7,8 +7,8 @@
  * - grads [paramCount]: same layout;
  * - per pass ("train" for forward/backward, "infer" for predict): input [cap, n0] and one
  *   output per layer y_l [cap, n(l+1)] (post-activation; backward derives act' from y);
- * - backward: two ping-pong buffers dz [cap, max hidden or output width], dx [cap, n0], and a
- *   scratch [max n(l) n(l+1)] for the transposed weight W_l^T.
+ * - backward: two ping-pong buffers dz [cap, max hidden or output width], dx [cap, n0], a
+ *   scratch [max n(l) n(l+1)] for the transposed weight W_l^T, and gemm's packing scratch [4 cap].
  * `cap` is the largest batch seen so far; buffers are reallocated only when a batch exceeds it.
  *
  * Per layer, forward is one fused kernel call: y = act(x W + b). Backward per layer l (from
@@ -63,6 +63,8 @@ export class SimdMlp implements Mlp {
   private dzA = 0;
   private dzB = 0;
   private dx = 0;
+  /** gemm's panel-packing scratch [4 * cap] for the weight gradients x^T dz. */
+  private pack = 0;
   private dzv: Float32Array = new Float32Array(0);
   private dxv: Float32Array = new Float32Array(0);
   private dxOut: Float32Array = new Float32Array(0);
@@ -135,18 +137,18 @@ export class SimdMlp implements Mlp {
       const nout = this.sizes[l + 1]!;
       const xin = l === 0 ? tr.x : tr.ys[l - 1]!;
       // dW_l [nin, nout] = x_l^T dz: A(i, p) = x_l[p, i], so sai = 1, sap = nin.
-      k.gemm(xin, 1, nin, dz, this.pGrads + 4 * this.wOff[l]!, nin, batch, nout, 0, ACT.linear, 0, 0);
+      k.gemm(xin, 1, nin, dz, this.pGrads + 4 * this.wOff[l]!, nin, batch, nout, 0, ACT.linear, 0, 0, this.pack);
       k.colsum(dz, batch, nout, this.pGrads + 4 * this.bOff[l]!);
       if (l > 0 || inputGrad) {
         k.transpose(this.pParams + 4 * this.wOff[l]!, nin, nout, this.scratch);
         if (l > 0) {
           // dz_(l-1) = (dz W_l^T) * act'(y_(l-1)), derivative fused in the epilogue.
-          k.gemm(dz, nout, 1, this.scratch, dzNext, batch, nout, nin, 0, ACT.linear, tr.ys[l - 1]!, this.acts[l - 1]!);
+          k.gemm(dz, nout, 1, this.scratch, dzNext, batch, nout, nin, 0, ACT.linear, tr.ys[l - 1]!, this.acts[l - 1]!, 0);
           const t = dz;
           dz = dzNext;
           dzNext = t;
         } else {
-          k.gemm(dz, nout, 1, this.scratch, this.dx, batch, nout, nin, 0, ACT.linear, 0, 0);
+          k.gemm(dz, nout, 1, this.scratch, this.dx, batch, nout, nin, 0, ACT.linear, 0, 0, 0);
         }
       }
     }
@@ -222,7 +224,7 @@ export class SimdMlp implements Mlp {
     for (let l = 0; l < this.L; l++) {
       const nin = this.sizes[l]!;
       const y = p.ys[l]!;
-      this.k.gemm(xin, nin, 1, this.pParams + 4 * this.wOff[l]!, y, batch, nin, this.sizes[l + 1]!, this.pParams + 4 * this.bOff[l]!, this.acts[l]!, 0, 0);
+      this.k.gemm(xin, nin, 1, this.pParams + 4 * this.wOff[l]!, y, batch, nin, this.sizes[l + 1]!, this.pParams + 4 * this.bOff[l]!, this.acts[l]!, 0, 0, 0);
       xin = y;
     }
     if (p.outBatch !== batch) {
@@ -256,6 +258,7 @@ export class SimdMlp implements Mlp {
     this.dzA = this.heap.allocF32(batch * this.maxOut);
     this.dzB = this.heap.allocF32(batch * this.maxOut);
     this.dx = this.heap.allocF32(batch * this.sizes[0]!);
+    this.pack = this.heap.allocF32(4 * batch);
     this.dzv = this.heap.f32(this.dzA, batch * this.maxOut);
     this.dxv = this.heap.f32(this.dx, batch * this.sizes[0]!);
     this.dxBatch = 0;
@@ -266,6 +269,7 @@ export class SimdMlp implements Mlp {
     this.heap.freeF32(this.dzA, this.bwdCap * this.maxOut);
     this.heap.freeF32(this.dzB, this.bwdCap * this.maxOut);
     this.heap.freeF32(this.dx, this.bwdCap * this.sizes[0]!);
+    this.heap.freeF32(this.pack, 4 * this.bwdCap);
     this.bwdCap = 0;
   }
 }

@@ -24,7 +24,7 @@ const DONE = 1;
 const STATUS = 2;
 const READY = 3;
 const ARGS = 4;
-const SLOTS = 16;
+const SLOTS = 20;
 
 /** Busy-wait iterations before sleeping (roughly 0.1-0.3 ms of polling). */
 const SPIN = 20000;
@@ -64,10 +64,18 @@ export function twoThreadKernels(k: KernelExports, module: WasmModule, heap: Was
     return { k, threads: 1, reason: `helper thread did not start within ${TIMEOUT_MS} ms; one thread`, dispose: () => {} };
   }
   let seq = 0;
-  const gemm: KernelExports['gemm'] = (a, sai, sap, b, c, M, K, N, bias, act, d, dkind) => {
+  // The helper's own packing scratch (4 K floats), grown when a larger K first arrives.
+  let helperPack = 0;
+  let helperPackK = 0;
+  const gemm: KernelExports['gemm'] = (a, sai, sap, b, c, M, K, N, bias, act, d, dkind, pack) => {
     if (M < 8 || M * K * N < minWork || worker === null) {
-      k.gemm(a, sai, sap, b, c, M, K, N, bias, act, d, dkind);
+      k.gemm(a, sai, sap, b, c, M, K, N, bias, act, d, dkind, pack);
       return;
+    }
+    if (pack !== 0 && K > helperPackK) {
+      if (helperPackK > 0) heap.freeF32(helperPack, 4 * helperPackK);
+      helperPack = heap.allocF32(4 * K);
+      helperPackK = K;
     }
     const M1 = (M >> 3) << 2; // first half, a multiple of 4 rows (whole register blocks)
     const rowBytes = 4 * N;
@@ -83,10 +91,11 @@ export function twoThreadKernels(k: KernelExports, module: WasmModule, heap: Was
     s[ARGS + 9] = act;
     s[ARGS + 10] = d ? d + M1 * rowBytes : 0;
     s[ARGS + 11] = dkind;
+    s[ARGS + 12] = pack === 0 ? 0 : helperPack;
     seq = seq === 0x7fffffff ? 1 : seq + 1;
     Atomics.store(s, SEQ, seq);
     Atomics.notify(s, SEQ);
-    k.gemm(a, sai, sap, b, c, M1, K, N, bias, act, d, dkind);
+    k.gemm(a, sai, sap, b, c, M1, K, N, bias, act, d, dkind, pack);
     let n = 0;
     while (Atomics.load(s, DONE) !== seq) {
       if (++n > SPIN) {
