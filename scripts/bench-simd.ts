@@ -10,6 +10,7 @@
  *
  * Usage: npx tsx scripts/bench-simd.ts [--quick]
  */
+import { bestTime as time } from '../packages/agent/bench/timing';
 import { Rng } from '../packages/envs/src/random';
 import { createSimdBackend, type SimdMode } from '../packages/agent/src/net/simd';
 import { loadSimdKernels } from '../packages/agent/src/net/simd/loader';
@@ -19,18 +20,6 @@ const quick = process.argv.includes('--quick');
 
 function emit(o: Record<string, unknown>): void {
   process.stdout.write(`${JSON.stringify(o)}\n`);
-}
-
-/** Best of `rounds` timings of `reps` calls, in ms per call. */
-function time(fn: () => void, reps: number, rounds: number): number {
-  for (let i = 0; i < Math.max(3, reps / 4); i++) fn();
-  let best = Infinity;
-  for (let r = 0; r < rounds; r++) {
-    const t0 = performance.now();
-    for (let i = 0; i < reps; i++) fn();
-    best = Math.min(best, (performance.now() - t0) / reps);
-  }
-  return best;
 }
 
 function benchKernels(mode: SimdMode): void {

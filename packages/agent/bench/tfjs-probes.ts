@@ -5,17 +5,9 @@
 import * as tf from '@tensorflow/tfjs';
 import { Rng } from '@tilewise/envs';
 
-/** Best of `rounds` timings of `reps` calls, ms per call. */
-export function bestTime(fn: () => void, reps: number, rounds: number): number {
-  for (let i = 0; i < Math.max(2, reps / 4); i++) fn();
-  let best = Infinity;
-  for (let r = 0; r < rounds; r++) {
-    const t0 = performance.now();
-    for (let i = 0; i < reps; i++) fn();
-    best = Math.min(best, (performance.now() - t0) / reps);
-  }
-  return best;
-}
+import { bestTime } from './timing';
+
+export { bestTime };
 
 /** Kernel calls and kernel time by kernel name while `fn` runs (tf.profile). */
 export async function profileKernels(fn: () => void): Promise<Map<string, { calls: number; ms: number }>> {
