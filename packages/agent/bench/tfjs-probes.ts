@@ -4,7 +4,6 @@
  */
 import * as tf from '@tensorflow/tfjs';
 import { Rng } from '@tilewise/envs';
-
 import { bestTime } from './timing';
 
 export { bestTime };
