@@ -661,9 +661,8 @@ export class KolmogorovEnv implements TiledEnv {
   private readonly hx: number;
   private readonly hy: number;
   private readonly stencilSum: number;
-  /** Grid index (i, j) of each tile's jet centre, [T]. */
-  private readonly jetI: Int32Array;
-  private readonly jetJ: Int32Array;
+  /** Grid point (j*nx + i) under stencil entry s of tile t's jet, [T, stencil size]. */
+  private readonly jetPoint: Int32Array;
   /** sin(n y_j) per grid row, [ny]. */
   private readonly sinRow: Float64Array;
   /** Grid point (j*nx + i) of observation sensor s of tile t, [T, sensorsPerObs]. */
@@ -747,8 +746,7 @@ export class KolmogorovEnv implements TiledEnv {
       }
     }
     this.stencilSum = sum;
-    this.jetI = new Int32Array(T);
-    this.jetJ = new Int32Array(T);
+    this.jetPoint = new Int32Array(T * wx * wy);
     const pi = Math.round(c.actuatorPosition[0] * cx);
     const pj = Math.round(c.actuatorPosition[1] * cy);
     const oi = Math.round(c.oppositionOffset[0] / dx);
@@ -757,8 +755,12 @@ export class KolmogorovEnv implements TiledEnv {
     for (let ty = 0; ty < Ty; ty++) {
       for (let tx = 0; tx < Tx; tx++) {
         const t = ty * Tx + tx;
-        this.jetI[t] = tx * cx + pi;
-        this.jetJ[t] = ty * cy + pj;
+        for (let a = -this.hy; a <= this.hy; a++) {
+          for (let b = -this.hx; b <= this.hx; b++) {
+            const sIdx = (a + this.hy) * wx + (b + this.hx);
+            this.jetPoint[t * wx * wy + sIdx] = mod(ty * cy + pj + a, ny) * nx + mod(tx * cx + pi + b, nx);
+          }
+        }
         this.oppPoint[t] = mod(ty * cy + pj + oj, ny) * nx + mod(tx * cx + pi + oi, nx);
       }
     }
@@ -987,23 +989,19 @@ export class KolmogorovEnv implements TiledEnv {
 
   /** Build f_y = sum_t a_t g_t - mean for every copy and hand it to the solver. */
   private applyForce(): void {
-    const { B, T, nx, ny, hx, hy } = this;
+    const { B, T, nx, ny } = this;
     const f = this.force;
     f.fill(0);
-    const wx = 2 * hx + 1;
+    const g = this.stencil;
+    const S = g.length;
+    const idx = this.jetPoint;
     for (let b = 0; b < B; b++) {
       let total = 0;
       for (let t = 0; t < T; t++) {
         const a = this.amp[b * T + t]!;
         if (a === 0) continue;
         total += a;
-        const i0 = this.jetI[t]!;
-        const j0 = this.jetJ[t]!;
-        for (let dj = -hy; dj <= hy; dj++) {
-          const row = mod(j0 + dj, ny) * nx;
-          const srow = (dj + hy) * wx + hx;
-          for (let di = -hx; di <= hx; di++) f[(row + mod(i0 + di, nx)) * B + b]! += a * this.stencil[srow + di]!;
-        }
+        for (let s = 0, q = t * S; s < S; s++, q++) f[idx[q]! * B + b]! += a * g[s]!;
       }
       const mean = (total * this.stencilSum) / (nx * ny);
       if (mean !== 0) for (let p = b; p < f.length; p += B) f[p]! -= mean;
@@ -1016,7 +1014,7 @@ export class KolmogorovEnv implements TiledEnv {
    * time: tile mean flow U_t, jet power p_t, domain I and D; added with weight w.
    */
   private sample(vel: Float64Array, w: number): void {
-    const { B, T, Tx, Ty, nx, cx, cy, hx, hy } = this;
+    const { B, T, Tx, Ty, nx, cx, cy } = this;
     const C = 2 * B;
     const rowSum = this.rowSum;
     // Tile mean flow: U_t = (2 / (cx cy)) sum_tile u sin(n y).
@@ -1026,9 +1024,11 @@ export class KolmogorovEnv implements TiledEnv {
       for (let j = ty * cy; j < (ty + 1) * cy; j++) {
         const sj = this.sinRow[j]!;
         for (let tx = 0; tx < Tx; tx++) {
-          let p = (j * nx + tx * cx) * C;
-          for (let i = 0; i < cx; i++, p += C) {
-            for (let b = 0; b < B; b++) rowSum[b * Tx + tx]! += sj * vel[p + b]!;
+          const p0 = (j * nx + tx * cx) * C;
+          for (let b = 0; b < B; b++) {
+            let acc = 0;
+            for (let i = 0, p = p0 + b; i < cx; i++, p += C) acc += vel[p]!;
+            rowSum[b * Tx + tx]! += sj * acc;
           }
         }
       }
@@ -1038,20 +1038,15 @@ export class KolmogorovEnv implements TiledEnv {
     }
     // Jet power: p_t = a_t sum_stencil v g dA.
     const dA = (this.solver.lx * this.solver.ly) / (nx * this.ny);
-    const wx = 2 * hx + 1;
     const tileArea = (this.solver.lx * this.solver.ly) / T;
+    const g = this.stencil;
+    const S = g.length;
+    const idx = this.jetPoint;
     for (let t = 0; t < T; t++) {
-      const i0 = this.jetI[t]!;
-      const j0 = this.jetJ[t]!;
-      for (let b = 0; b < B; b++) this.projLast[b * T + t] = 0;
-      for (let dj = -hy; dj <= hy; dj++) {
-        const row = mod(j0 + dj, this.ny) * nx;
-        const srow = (dj + hy) * wx + hx;
-        for (let di = -hx; di <= hx; di++) {
-          const g = this.stencil[srow + di]!;
-          const p = (row + mod(i0 + di, nx)) * C + B;
-          for (let b = 0; b < B; b++) this.projLast[b * T + t]! += g * vel[p + b]!;
-        }
+      for (let b = 0; b < B; b++) {
+        let acc = 0;
+        for (let s = 0, q = t * S; s < S; s++, q++) acc += g[s]! * vel[idx[q]! * C + B + b]!;
+        this.projLast[b * T + t] = acc;
       }
     }
     if (w === 0) return;
