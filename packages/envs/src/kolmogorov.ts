@@ -33,7 +33,7 @@
  *   laminar I_lam = D_lam = Re/(2 n^2), E_lam = Re^2/(4 n^4).
  */
 import { z } from 'zod';
-import type { EnvEvent, EnvSpec, ObsLayoutEntry, StepOut, TiledEnv } from './contract';
+import type { EnvEvent, EnvSpec, EnvState, ObsLayoutEntry, StepOut, TiledEnv } from './contract';
 import { parseConfig } from './config';
 import { cachedReference, referenceFromBlocks, type ReferenceValue } from './reference';
 import type { EnvKind } from './registry';
@@ -41,7 +41,10 @@ import { etdrk4Coefficients, Etdrk4Stepper, type NonlinearTerm } from './etdrk4'
 import { Fft2 } from './fft2';
 import { Rng } from './random';
 import { twoThirdsMask } from './spectral';
-import { checkCopy, checkSeed, clipActions, mod, TiledStepBuffers } from './tiled';
+import { checkCopy, checkSeed, checkStateMeta, clipActions, mod, restoreStateArray, TiledStepBuffers } from './tiled';
+
+/** Format of `KolmogorovEnv.getState` (bumped when its arrays change). */
+const KOLMOGOROV_STATE_FORMAT = 1;
 
 // ---------------------------------------------------------------------------------------
 // Physics parameters and the batched solver
@@ -978,6 +981,55 @@ export class KolmogorovEnv implements TiledEnv {
       out[2 * nx * ny + p] = V[p * 2 * B + B + copy]!;
     }
     return out;
+  }
+
+  /**
+   * The dynamic state at a decision boundary (copies): spectral vorticity omRe, omIm
+   * [modes][B] (fft2.ts layout), jet amplitudes amp [B, T], decisions [B] and the pending
+   * divergence flags [B]. The jet forcing, velocity and observations are functions of these
+   * and are recomputed by `setState`, bit for bit.
+   */
+  getState(): EnvState {
+    return {
+      meta: this.stateMeta(),
+      arrays: {
+        omRe: this.solver.omRe.slice(),
+        omIm: this.solver.omIm.slice(),
+        amp: this.amp.slice(),
+        decisions: this.buf.decisions.slice(),
+        divergedNow: this.divergedNow.slice(),
+      },
+    };
+  }
+
+  /** Restore a state from `getState` of a KolmogorovEnv with the same config and copies (else throws naming the field). */
+  setState(state: EnvState): void {
+    const who = 'KolmogorovEnv.setState';
+    checkStateMeta(who, state, this.stateMeta());
+    restoreStateArray(who, state, 'omRe', this.solver.omRe);
+    restoreStateArray(who, state, 'omIm', this.solver.omIm);
+    restoreStateArray(who, state, 'amp', this.amp);
+    restoreStateArray(who, state, 'decisions', this.buf.decisions);
+    restoreStateArray(who, state, 'divergedNow', this.divergedNow);
+    this.applyForce();
+    this.solver.computeVelocity();
+    this.writeObs();
+  }
+
+  private stateMeta(): Record<string, string | number | boolean | null> {
+    const c = this.config;
+    return {
+      format: KOLMOGOROV_STATE_FORMAT,
+      kind: 'kolmogorov',
+      copies: this.B,
+      nx: this.nx,
+      ny: this.ny,
+      reynolds: c.reynolds,
+      forcingWavenumber: c.forcingWavenumber,
+      aspect: c.aspect,
+      tilesX: this.Tx,
+      tilesY: this.Ty,
+    };
   }
 
   /** Clipped amplitudes applied in the last step, [B, T] (= [B, T, actDim]). */

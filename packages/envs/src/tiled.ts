@@ -8,7 +8,7 @@
  * copy that diverged gets `onDivergence` on every tile, NaN drag and actuation power, and
  * done = 1 with truncated = 0; a copy that reaches the time limit gets done = truncated = 1.
  */
-import type { StepOut } from './contract';
+import type { EnvState, StepOut } from './contract';
 
 export class TiledStepBuffers {
   readonly obs: Float32Array;
@@ -104,4 +104,23 @@ export function checkCopy(who: string, copy: number, copies: number): void {
 export function mod(a: number, n: number): number {
   const r = a % n;
   return r < 0 ? r + n : r;
+}
+
+/** Throw unless every key of `expected` has the same value in the saved state's meta, naming the first that differs. */
+export function checkStateMeta(who: string, state: EnvState, expected: Readonly<Record<string, string | number | boolean | null>>): void {
+  const m = state?.meta;
+  for (const [k, v] of Object.entries(expected)) {
+    if (m?.[k] !== v) throw new Error(`${who}: saved ${k} ${JSON.stringify(m?.[k])} differs from this env's ${JSON.stringify(v)}`);
+  }
+}
+
+/** Copy the saved array `name` into `dst`, which it must match in type and length (else throw naming it). */
+export function restoreStateArray(who: string, state: EnvState, name: string, dst: Float64Array | Int32Array | Uint8Array): void {
+  const src = state.arrays?.[name];
+  if (!src || src.constructor !== dst.constructor || src.length !== dst.length) {
+    throw new Error(
+      `${who}: array "${name}" must be a ${dst.constructor.name} of length ${dst.length}, got ${src ? `${src.constructor.name} of length ${src.length}` : 'nothing'}`,
+    );
+  }
+  dst.set(src as never);
 }

@@ -359,6 +359,34 @@ describe('KolmogorovEnv', () => {
     expect(oa.slice(0, D)).not.toEqual(oa.slice(D, 2 * D));
   });
 
+  it('getState/setState: a restored env continues bit for bit; the decision counter is kept; mismatches are named', () => {
+    const cfg = smallConfig({ episodeLength: 6 });
+    const a = new KolmogorovEnv(cfg, { copies: 2, cf0: 20, i0: 0.15 });
+    a.reset([5, 6]);
+    const act = (k: number) => new Float32Array(16).map((_, i) => 1.3 * Math.sin(3 * i + k)); // beyond the bound: clipping exercised
+    for (let k = 0; k < 3; k++) a.step(act(k));
+    const saved = a.getState();
+    const b = new KolmogorovEnv(cfg, { copies: 2, cf0: 20, i0: 0.15 });
+    b.reset([1, 2]);
+    b.setState(saved);
+    expect(b.observe()).toEqual(a.observe());
+    for (let k = 3; k < 6; k++) {
+      const oa = a.step(act(k));
+      const ra = { obs: oa.obs.slice(), reward: oa.reward.slice(), drag: oa.drag.slice(), done: oa.done.slice() };
+      const ob = b.step(act(k));
+      expect(ob.obs).toEqual(ra.obs);
+      expect(ob.reward).toEqual(ra.reward);
+      expect(ob.drag).toEqual(ra.drag);
+      expect(ob.done).toEqual(ra.done);
+      expect(ob.done[0]).toBe(k === 5 ? 1 : 0); // the restored counter ends the episode at decision 6
+    }
+    expect(b.snapshot(1)).toEqual(a.snapshot(1));
+    expect(() => new KolmogorovEnv(cfg, { copies: 3, cf0: 20, i0: 0.15 }).setState(saved)).toThrow(/saved copies 2 differs from this env's 3/);
+    expect(() => new KolmogorovEnv(smallConfig({ tiles: [2, 2] }), { copies: 2, cf0: 20, i0: 0.15 }).setState(saved)).toThrow(/saved tilesX 4 differs/);
+    const broken = { meta: saved.meta, arrays: { ...saved.arrays, amp: new Float64Array(3) } };
+    expect(() => b.setState(broken)).toThrow(/array "amp" must be a Float64Array of length 16, got Float64Array of length 3/);
+  });
+
   it('a blow-up ends the episode with the diverged flag, an event and finite outputs, never a throw', () => {
     const events: string[] = [];
     const cfg = smallConfig({ dt: 0.6, controlSteps: 20, actionBound: 50, spinUpTime: 0 });
