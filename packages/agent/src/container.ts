@@ -154,7 +154,9 @@ export function decodeContainer(bytes: Uint8Array, expectKind?: string, what = '
   for (const b of header.blocks) {
     const Ctor = CTOR[b.dtype];
     const start = dataStart + b.offset;
-    const copy = bytes.slice(start, start + b.length * Ctor.BYTES_PER_ELEMENT);
+    // A fresh, exactly sized buffer. Not bytes.slice(): on a Node Buffer (readFileSync) slice
+    // is a view into a larger (possibly pooled) buffer, so copy.buffer would start elsewhere.
+    const copy = new Uint8Array(bytes.subarray(start, start + b.length * Ctor.BYTES_PER_ELEMENT));
     blocks.set(b.name, new Ctor(copy.buffer, 0, b.length));
   }
   return { kind: header.kind, meta: header.meta, blocks };

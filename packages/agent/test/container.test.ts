@@ -60,6 +60,17 @@ describe('state container', () => {
     expect(() => decodeContainer(longer)).toThrow(/3 unexpected trailing bytes/);
   });
 
+  it('decodes from a Node Buffer that is a view into a larger buffer (as readFileSync can return)', () => {
+    const bytes = encodeContainer('test-kind', { a: 1 }, blocks());
+    const big = Buffer.alloc(bytes.length + 24, 0x5a);
+    big.set(bytes, 16);
+    const view = big.subarray(16, 16 + bytes.length); // byteOffset 16 in a larger ArrayBuffer
+    const c = decodeContainer(view);
+    expect(Array.from(getBlock(c, 'stats', 'f64'))).toEqual([Math.PI, -1e-300, 2 ** 53]);
+    expect(Array.from(getBlock(c, 'counts', 'i32'))).toEqual([-7, 0, 2 ** 31 - 1]);
+    expect(getBlock(c, 'weights', 'f32').buffer.byteLength).toBe(5 * 4);
+  });
+
   it('rejects duplicate or empty block names', () => {
     expect(() => encodeContainer('k', null, new Map([['', new Float32Array(1)]]))).toThrow(/unique and non-empty/);
   });
