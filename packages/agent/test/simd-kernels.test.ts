@@ -7,13 +7,18 @@
  * u = 2^-24 (Higham 2002, "Accuracy and Stability of Numerical Algorithms", 2nd ed., eq. 3.5),
  * with n = K + 1 terms counting the bias. The bound holds with or without fused multiply-add.
  *
- * Measured max |error| on this machine (AMD EPYC, Node 20), inputs U[-1, 1):
- *   (M,K,N)          A B, plain / FMA        A^T B, plain / FMA
- *   (256,64,64)      9.5e-7 / 7.2e-7         9.5e-7 / 9.5e-7
- *   (256,256,256)    1.9e-6 / 1.9e-6         1.9e-6 / 1.9e-6
- *   (64,256,64)      1.9e-6 / 1.9e-6         1.9e-6 / 1.4e-6
- *   (256,256,1)      1.9e-6 / 1.9e-6         1.4e-6 / 1.4e-6
- *   ragged (7,13,11) 2.4e-7 / 2.4e-7         2.4e-7 / 2.4e-7
+ * Measured max |error| (inputs U[-1, 1), so |c| is typically sqrt(K) / 3), plain / FMA build; packing
+ * the A^T panels gives the same bits as not packing:
+ *   (M,K,N)          A B                 A^T B
+ *   (256,64,64)      2.8e-6 / 2.6e-6     3.4e-6 / 3.1e-6
+ *   (256,256,256)    1.2e-5 / 1.4e-5     1.4e-5 / 1.4e-5
+ *   (64,256,64)      1.1e-5 / 8.7e-6     1.2e-5 / 9.0e-6
+ *   (256,256,1)      1.3e-5 / 9.4e-6     7.4e-6 / 6.1e-6
+ *   (6,17,20)        5.3e-7 / 5.6e-7     3.7e-7 / 5.4e-7
+ *   (7,13,11)        2.2e-7 / 2.4e-7     3.4e-7 / 4.4e-7
+ *   (5,3,9)          5.1e-8 / 6.6e-8     6.0e-8 / 5.8e-8
+ *   (3,5,4)          5.4e-8 / 4.8e-8     1.3e-7 / 7.5e-8
+ *   (1,1,1)          1.6e-9 / 3.7e-9     1.6e-9 / 3.7e-9
  * (regenerate with SIMD_PRINT_ERRORS=1 npx vitest run --project agent simd-kernels).
  */
 import { Rng } from '@tilewise/envs';
