@@ -29,8 +29,8 @@ describe('Kolmogorov surrogate through the runner', () => {
   kind: kolmogorov
   points: [32, 32]
   spinUpTime: 2
-  controlSteps: 5
-  episodeLength: 6
+  controlSteps: 2
+  episodeLength: 48
   sensorsPerTile: [2, 2]
   reference: { time: 10, copies: 1, blockTime: 5 }
 evaluation: { seed: 2, episodes: 2, copies: 2, discardDecisions: 2 }
