@@ -5,22 +5,50 @@
  */
 import { Command, CommanderError, Option } from 'commander';
 import { ConfigError, envKinds, type EnvEvent } from '@tilewise/envs';
-import { loadRunConfig } from './config';
+import { stringify as toYaml } from 'yaml';
+import { loadRunConfig, resolvedConfig, type RunConfig } from './config';
 import { runBaselines } from './commands/baselines';
+import { evaluateSource, openPolicySource, transferSource } from './commands/evaluate';
+import { createProgress, noProgress, type Progress } from './progress';
+import { resumeRun, train, type TrainSummary } from './trainer';
 
 export const EXIT_OK = 0;
 export const EXIT_RUNTIME = 1;
 export const EXIT_CONFIG = 2;
+/** Training stopped by SIGINT or SIGTERM after writing its final checkpoint (128 + signal number). */
+export const EXIT_SIGINT = 130;
+export const EXIT_SIGTERM = 143;
 
 /** Where commands write: stdout for results, stderr for progress and errors. */
 export interface Io {
   out(line: string): void;
   err(line: string): void;
+  /** A progress display on stderr (absent: none). */
+  progress?(): Progress;
+  /** Install SIGINT/SIGTERM handlers that abort `controller`; returns the uninstaller. */
+  onSignals?(controller: AbortController, say: (line: string) => void): () => void;
 }
 
 const processIo: Io = {
   out: (l) => process.stdout.write(`${l}\n`),
   err: (l) => process.stderr.write(`${l}\n`),
+  progress: () => createProgress({ write: (s) => process.stderr.write(s), tty: Boolean(process.stderr.isTTY), columns: process.stderr.columns }),
+  onSignals(controller, say) {
+    const handler = (sig: NodeJS.Signals): void => {
+      if (controller.signal.aborted) {
+        say(`tilewise: ${sig} again: quitting without waiting (the last checkpoint on disk is intact)`);
+        process.exit(sig === 'SIGTERM' ? EXIT_SIGTERM : EXIT_SIGINT);
+      }
+      say(`tilewise: ${sig}: stopping after this step and writing a checkpoint (send it again to quit at once)`);
+      controller.abort(sig);
+    };
+    process.on('SIGINT', handler);
+    process.on('SIGTERM', handler);
+    return () => {
+      process.off('SIGINT', handler);
+      process.off('SIGTERM', handler);
+    };
+  },
 };
 
 interface CommandEntry {
@@ -40,13 +68,193 @@ function positiveInt(name: string) {
   };
 }
 
+function nonNegativeInt(name: string) {
+  return (v: string): number => {
+    const n = Number(v);
+    if (!Number.isInteger(n) || n < 0) throw new ConfigError([`--${name}: expected a non-negative integer (got ${JSON.stringify(v)})`]);
+    return n;
+  };
+}
+
+function positiveNumber(name: string) {
+  return (v: string): number => {
+    const n = Number(v);
+    if (!Number.isFinite(n) || n <= 0) throw new ConfigError([`--${name}: expected a positive number (got ${JSON.stringify(v)})`]);
+    return n;
+  };
+}
+
 function eventLogger(io: Io, quiet: boolean): (e: EnvEvent) => void {
   return (e) => {
     if (!quiet || e.kind === 'diverged') io.err(`[${e.kind}] ${e.message}`);
   };
 }
 
+/** Run training (fresh or resumed) with signal handling and progress; then the final evaluation. */
+async function trainingSession(
+  io: Io,
+  opts: Record<string, unknown>,
+  start: (common: { progress: Progress; say: (l: string) => void; signal: AbortSignal; cacheDir?: string }) => Promise<TrainSummary>,
+  finalEvaluation: boolean,
+): Promise<number> {
+  const quiet = Boolean(opts.quiet);
+  const progress = quiet || opts.progress === false ? noProgress : (io.progress?.() ?? noProgress);
+  const say = (l: string): void => progress.line(l);
+  const controller = new AbortController();
+  const off = io.onSignals?.(controller, (l) => io.err(l)) ?? (() => {});
+  let summary: TrainSummary;
+  try {
+    summary = await start({ progress, say: quiet ? () => {} : (l) => io.err(l), signal: controller.signal, cacheDir: opts.cacheDir as string | undefined });
+  } finally {
+    off();
+  }
+  const best = summary.best;
+  io.err(
+    `training ${summary.status} (${summary.stopReason}): ${summary.steps} steps, ${summary.updates} updates in ${summary.trainSeconds.toFixed(0)} s` +
+      (best ? `; best validation ${summary.dragName} ${best.drag} ± ${best.halfWidth} at step ${best.step}` : ''),
+  );
+  io.err(`run directory: ${summary.runDir}`);
+  if (summary.status === 'interrupted') return controller.signal.reason === 'SIGTERM' ? EXIT_SIGTERM : EXIT_SIGINT;
+  if (finalEvaluation && opts.evaluate !== false) {
+    const src = openPolicySource(summary.runDir, 'best');
+    evaluateSource(src, null, { cacheDir: opts.cacheDir as string | undefined, log: (l) => io.out(l), onEvent: eventLogger(io, quiet) });
+  }
+  if (opts.json) io.out(JSON.stringify(summary));
+  return EXIT_OK;
+}
+
+/** Apply --seed/--steps/--seconds to a parsed config. */
+function withOverrides(cfg: RunConfig, opts: Record<string, unknown>): RunConfig {
+  const t = cfg.train;
+  const stop = {
+    ...t.stop,
+    ...(opts.steps !== undefined ? { steps: opts.steps as number } : {}),
+    ...(opts.seconds !== undefined ? { seconds: opts.seconds as number } : {}),
+  };
+  return { ...cfg, train: { ...t, seed: (opts.seed as number | undefined) ?? t.seed, stop } };
+}
+
 export const COMMANDS: CommandEntry[] = [
+  {
+    name: 'train',
+    summary: 'Train a shared-weight policy from a config in a new run directory, then compare it with the baselines',
+    configure(cmd) {
+      cmd
+        .argument('<config>', 'YAML config (env:, agent:, train:, evaluation:, baselines:)')
+        .option('--runs-dir <dir>', 'where the run directory is created', 'runs')
+        .option('--run-dir <dir>', 'use exactly this (new or empty) run directory')
+        .option('--seed <n>', 'run seed (overrides train.seed)', nonNegativeInt('seed'))
+        .option('--steps <n>', 'stop after this many environment steps (overrides train.stop.steps)', positiveInt('steps'))
+        .option('--seconds <s>', 'training time budget in seconds (overrides train.stop.seconds)', positiveNumber('seconds'))
+        .option('--no-evaluate', 'skip the final evaluation (overrides train.finalEvaluation)')
+        .option('--no-progress', 'no progress bar or progress lines')
+        .option('--cache-dir <dir>', 'where reference values (P0) are cached (default: $TILEWISE_CACHE or ~/.cache/tilewise)')
+        .addOption(new Option('--json', 'also print the run summary as one JSON object on the last line'))
+        .option('-q, --quiet', 'only results and errors');
+    },
+    async run(args, opts, io) {
+      const cfg = withOverrides(loadRunConfig(args[0]!), opts);
+      return trainingSession(
+        io,
+        opts,
+        (c) => train(cfg, { ...c, configPath: args[0], runsDir: opts.runsDir as string, runDir: opts.runDir as string | undefined }),
+        cfg.train.finalEvaluation,
+      );
+    },
+  },
+  {
+    name: 'resume',
+    summary: 'Continue a run from its newest good checkpoint (bit-identical continuation)',
+    configure(cmd) {
+      cmd
+        .argument('<run-dir>', 'a run directory made by tilewise train')
+        .option('--steps <n>', 'new total step limit (replaces train.stop.steps)', positiveInt('steps'))
+        .option('--seconds <s>', 'new total time budget in seconds (replaces train.stop.seconds)', positiveNumber('seconds'))
+        .option('--no-evaluate', 'skip the final evaluation')
+        .option('--no-progress', 'no progress bar or progress lines')
+        .option('--cache-dir <dir>', 'where reference values (P0) are cached')
+        .addOption(new Option('--json', 'also print the run summary as one JSON object on the last line'))
+        .option('-q, --quiet', 'only results and errors');
+    },
+    async run(args, opts, io) {
+      const runDir = args[0]!;
+      const cfg = loadRunConfig(`${runDir}/config.yaml`);
+      return trainingSession(
+        io,
+        opts,
+        (c) => resumeRun(runDir, { ...c, steps: opts.steps as number | undefined, seconds: opts.seconds as number | undefined }),
+        cfg.train.finalEvaluation,
+      );
+    },
+  },
+  {
+    name: 'evaluate',
+    summary: "Compare a trained policy with no control and tuned opposition control on identical seeded initial states (training domain and the config's transfer domains)",
+    configure(cmd) {
+      cmd
+        .argument('<source>', 'a run directory or a .policy file')
+        .option('--policy <which>', 'for a run directory: best or latest', 'best')
+        .option('--config <file>', 'take evaluation:, baselines: and evaluation.transfer from this config instead of the run')
+        .option('--episodes <n>', 'evaluation episodes per controller (overrides evaluation.episodes)', positiveInt('episodes'))
+        .option('--out <dir>', 'where to write the evaluation data (default: <run>/evaluation; none for a policy file)')
+        .option('--no-transfer', 'only the training domain')
+        .option('--cache-dir <dir>', 'where reference values (P0) are cached')
+        .option('-q, --quiet', 'only results and errors');
+    },
+    run(args, opts, io) {
+      const which = opts.policy as string;
+      if (which !== 'best' && which !== 'latest') throw new ConfigError([`--policy: expected best or latest (got ${JSON.stringify(which)})`]);
+      const src = openPolicySource(args[0]!, which);
+      const cfg = opts.config ? loadRunConfig(opts.config as string) : null;
+      evaluateSource(src, cfg, {
+        episodes: opts.episodes as number | undefined,
+        cacheDir: opts.cacheDir as string | undefined,
+        out: opts.out as string | undefined,
+        noTransfer: opts.transfer === false,
+        log: (l) => io.out(l),
+        onEvent: eventLogger(io, Boolean(opts.quiet)),
+      });
+      return EXIT_OK;
+    },
+  },
+  {
+    name: 'transfer',
+    summary: "Evaluate a trained policy on another domain (same tile size, more tiles) against that domain's baselines",
+    configure(cmd) {
+      cmd
+        .argument('<source>', 'a run directory (its best policy) or a .policy file')
+        .argument('<config>', "YAML config of the other domain (its env:, evaluation:, baselines:)")
+        .option('--policy <which>', 'for a run directory: best or latest', 'best')
+        .option('--episodes <n>', 'evaluation episodes per controller (overrides evaluation.episodes)', positiveInt('episodes'))
+        .option('--out <dir>', 'where to write the evaluation data (default: none)')
+        .option('--cache-dir <dir>', 'where reference values (P0) are cached')
+        .option('-q, --quiet', 'only results and errors');
+    },
+    run(args, opts, io) {
+      const which = opts.policy as string;
+      if (which !== 'best' && which !== 'latest') throw new ConfigError([`--policy: expected best or latest (got ${JSON.stringify(which)})`]);
+      const src = openPolicySource(args[0]!, which);
+      transferSource(src, args[1]!, {
+        episodes: opts.episodes as number | undefined,
+        cacheDir: opts.cacheDir as string | undefined,
+        out: (opts.out as string | undefined) ?? null,
+        log: (l) => io.out(l),
+        onEvent: eventLogger(io, Boolean(opts.quiet)),
+      });
+      return EXIT_OK;
+    },
+  },
+  {
+    name: 'config',
+    summary: 'Validate a config and print it with every default filled in (YAML)',
+    configure(cmd) {
+      cmd.argument('<config>', 'YAML config');
+    },
+    run(args, _opts, io) {
+      io.out(toYaml(resolvedConfig(loadRunConfig(args[0]!))).trimEnd());
+      return EXIT_OK;
+    },
+  },
   {
     name: 'baselines',
     summary: 'Evaluate the classical baselines (no control, opposition with a gain sweep, random) over seeded episodes',

@@ -45,9 +45,9 @@ describe('tilewise CLI', () => {
 
   it('config errors exit 2 naming the path and the value', async () => {
     const io = capture();
-    const p = writeConfig('bad.yaml', 'env: { kind: ks, tiles: 3 }\nevaluation: { episodes: 1 }\ntrain: {}\n');
+    const p = writeConfig('bad.yaml', 'env: { kind: ks, tiles: 3 }\nevaluation: { episodes: 1 }\ntrainer: {}\n');
     expect(await main(['baselines', p], io)).toBe(EXIT_CONFIG);
-    expect(io.errText()).toMatch(/train: unknown section/);
+    expect(io.errText()).toMatch(/trainer: unknown section \(known sections: env, agent, train, evaluation, baselines\)/);
     const io2 = capture();
     const p2 = writeConfig('bad2.yaml', 'env: { kind: ks, tiles: 3 }\nevaluation: { episodes: 1 }\n');
     expect(await main(['baselines', p2], io2)).toBe(EXIT_CONFIG);
