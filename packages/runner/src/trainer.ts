@@ -145,8 +145,19 @@ export function heldOutSeeds(cfg: RunConfig): { validation: number[]; tuning: nu
   };
 }
 
+/** Checkpoints need the env's getState/setState: reject the combination before any work. */
+function checkCheckpointable(cfg: RunConfig): void {
+  const probe: TiledEnv = buildEnv({ config: cfg.env.config as Record<string, unknown>, copies: 1, reference: 1 });
+  if (cfg.train.checkpoint.enabled && !(probe.getState && probe.setState)) {
+    throw new ConfigError([
+      `train.checkpoint.enabled: env kind "${cfg.env.config.kind}" cannot save its state (no getState/setState), so runs on it cannot be checkpointed or resumed (got true; set it to false)`,
+    ]);
+  }
+}
+
 /** Start a new run. */
 export async function train(cfg: RunConfig, o: TrainOptions = {}): Promise<TrainSummary> {
+  checkCheckpointable(cfg);
   const { dir, name } = newRunDir(o, cfg);
   writeFileAtomic(join(dir, RUN_FILES.config), `# tilewise run config, every default filled in\n${toYaml(resolvedConfig(cfg))}`);
   const ref = cfg.env.kind.reference(cfg.env.config, { cacheDir: o.cacheDir });
@@ -234,13 +245,7 @@ async function runLoop(
     if (e.kind === 'diverged') progress.line(`[${e.kind}] ${e.message}`);
   };
   // The spec without stepping anything (one copy, never reset).
-  const probe: TiledEnv = buildEnv({ ...envSpecData, copies: 1 });
-  const spec = probe.spec;
-  if (t.checkpoint.enabled && !probe.getState) {
-    throw new ConfigError([
-      `train.checkpoint.enabled: env kind "${spec.kind}" cannot save its state (no getState), so it cannot be checkpointed (got true; set it to false)`,
-    ]);
-  }
+  const spec = buildEnv({ ...envSpecData, copies: 1 }).spec;
   const agent = await createAgent({
     obsDim: spec.obsDim,
     actDim: spec.actDim,
