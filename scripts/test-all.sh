@@ -10,6 +10,7 @@ PNPM="npx -y pnpm@12.4.2"
 # a Redis server for the distributed sweep). Installed only when missing and when root.
 need=()
 command -v gcc >/dev/null 2>&1 || need+=(gcc)
+command -v gfortran >/dev/null 2>&1 || need+=(gfortran)
 if [ "${#need[@]}" -gt 0 ]; then
   if [ "$(id -u)" = "0" ]; then
     apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq "${need[@]}"
