@@ -8,7 +8,11 @@ import { ConfigError, envKinds, type EnvEvent } from '@tilewise/envs';
 import { stringify as toYaml } from 'yaml';
 import { loadRunConfig, resolvedConfig, type RunConfig } from './config';
 import { runBaselines } from './commands/baselines';
+import { fieldReference } from './fields';
 import { evaluateSource, openPolicySource, transferSource } from './commands/evaluate';
+import { actCommand, type ObservationFormat } from './commands/act';
+import { exportCommand, parseFormats } from './commands/export-policy';
+import { DEFAULT_SERVE_ADDRESS, serveCommand } from './commands/serve';
 import { createProgress, noProgress, type Progress } from './progress';
 import { resumeRun, train, type TrainSummary } from './trainer';
 
@@ -82,6 +86,13 @@ function positiveNumber(name: string) {
     if (!Number.isFinite(n) || n <= 0) throw new ConfigError([`--${name}: expected a positive number (got ${JSON.stringify(v)})`]);
     return n;
   };
+}
+
+/** --policy best|latest (for a run directory). */
+function policyChoice(opts: Record<string, unknown>): 'best' | 'latest' {
+  const which = opts.policy as string;
+  if (which !== 'best' && which !== 'latest') throw new ConfigError([`--policy: expected best or latest (got ${JSON.stringify(which)})`]);
+  return which;
 }
 
 function eventLogger(io: Io, quiet: boolean): (e: EnvEvent) => void {
@@ -246,12 +257,17 @@ export const COMMANDS: CommandEntry[] = [
   },
   {
     name: 'config',
-    summary: 'Validate a config and print it with every default filled in (YAML)',
+    summary: 'Validate a config and print it with every default filled in (YAML); --fields lists every config field',
     configure(cmd) {
-      cmd.argument('<config>', 'YAML config');
+      cmd.argument('[config]', 'YAML config').option('--fields', 'print the reference of every config field with its default (Markdown)');
     },
-    run(args, _opts, io) {
-      io.out(toYaml(resolvedConfig(loadRunConfig(args[0]!))).trimEnd());
+    run(args, opts, io) {
+      if (opts.fields) {
+        io.out(fieldReference());
+        return EXIT_OK;
+      }
+      if (!args[0]) throw new ConfigError(['config: expected a config file (or --fields)']);
+      io.out(toYaml(resolvedConfig(loadRunConfig(args[0]))).trimEnd());
       return EXIT_OK;
     },
   },
@@ -276,6 +292,72 @@ export const COMMANDS: CommandEntry[] = [
         onEvent: eventLogger(io, quiet),
       });
       if (opts.json) io.out(JSON.stringify(result));
+      return EXIT_OK;
+    },
+  },
+  {
+    name: 'export',
+    summary: 'Write a trained policy (normalisation and action scaling baked in, with metadata) as ONNX, C, Fortran and/or JSON',
+    configure(cmd) {
+      cmd
+        .argument('<source>', 'a run directory, a .policy file or a JSON export')
+        .option('--format <list>', 'comma-separated: onnx, c, fortran, json; or all', 'all')
+        .option('--out <dir>', 'output directory (default: <run-dir>/export, or ./export for a file)')
+        .option('--name <name>', 'file base name and C/Fortran symbol prefix', 'tilewise_policy')
+        .option('--policy <which>', 'for a run directory: best or latest', 'best');
+    },
+    run(args, opts, io) {
+      const files = exportCommand(args[0]!, { formats: parseFormats(opts.format as string), out: opts.out as string | undefined, name: opts.name as string, which: policyChoice(opts) });
+      for (const f of files) io.out(f);
+      return EXIT_OK;
+    },
+  },
+  {
+    name: 'act',
+    summary: 'Print the actions of a policy or export for observations read as JSON lines or CSV (to check an export by hand)',
+    configure(cmd) {
+      cmd
+        .argument('<source>', 'a run directory, a .policy file, a JSON export or an ONNX export')
+        .option('--input <file>', 'observations (default: standard input)')
+        .option('--format <fmt>', 'jsonl (an array of obsDim numbers, or of such arrays, per line) or csv (one tile per row); default from the file name, else jsonl')
+        .option('--policy <which>', 'for a run directory: best or latest', 'best');
+    },
+    async run(args, opts, io) {
+      const lines = await actCommand(args[0]!, { input: opts.input as string | undefined, format: opts.format as ObservationFormat | undefined, which: policyChoice(opts) });
+      for (const l of lines) io.out(l);
+      return EXIT_OK;
+    },
+  },
+  {
+    name: 'serve',
+    summary: 'Answer batches of tile observations with actions over the tilewise wire protocol (docs/wire-protocol.md) until interrupted',
+    configure(cmd) {
+      cmd
+        .argument('<source>', 'a run directory, a .policy file or a JSON export')
+        .option('--listen <address>', 'PORT, HOST:PORT or unix:PATH', DEFAULT_SERVE_ADDRESS)
+        .option('--max-tiles <n>', 'most tiles in one request', positiveInt('max-tiles'), 4096)
+        .option('--max-connections <n>', 'most connections open at once', positiveInt('max-connections'), 64)
+        .option('--policy <which>', 'for a run directory: best or latest', 'best')
+        .option('-q, --quiet', 'no connection lines');
+    },
+    async run(args, opts, io) {
+      const controller = new AbortController();
+      const stop = (): void => controller.abort();
+      process.once('SIGINT', stop);
+      process.once('SIGTERM', stop);
+      try {
+        await serveCommand(args[0]!, {
+          listen: opts.listen as string,
+          maxTiles: opts.maxTiles as number,
+          maxConnections: opts.maxConnections as number,
+          which: policyChoice(opts),
+          log: (l) => (opts.quiet && !l.startsWith('serving') ? undefined : io.err(l)),
+          signal: controller.signal,
+        });
+      } finally {
+        process.off('SIGINT', stop);
+        process.off('SIGTERM', stop);
+      }
       return EXIT_OK;
     },
   },

@@ -54,7 +54,7 @@ export const evaluationSchema = z
         histogramBins: z.number().int().min(2).default(41).describe('Bins of the saved actuation histogram over [-bound, bound] (default 41).'),
       })
       .prefault({})
-      .describe('What an evaluation saves beside its statistics (docs/evaluation-format.md).'),
+      .describe('What an evaluation saves beside its statistics (docs/formats.md).'),
   })
   .prefault({})
   .describe('Seeded evaluation episodes.');

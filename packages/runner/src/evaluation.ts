@@ -6,7 +6,7 @@
  *
  * `compareControllers` runs one domain; `evaluatePolicyOnDomains` runs a policy on its
  * training domain and on transfer domains (same tile size, more tiles) and writes the data a
- * report needs (docs/evaluation-format.md) under <out>/<domain>/: evaluation.json (summary)
+ * report needs (docs/formats.md) under <out>/<domain>/: evaluation.json (summary)
  * and series.twdata (time series, actuation, field snapshots).
  */
 import { mkdirSync } from 'node:fs';

@@ -4,7 +4,7 @@
  *
  * The forward pass is PolicyNet (policy-net.ts).
  *
- * File (docs/policy-format.md): a tilewise state container (`@tilewise/agent` container.ts)
+ * File (docs/formats.md): a tilewise state container (`@tilewise/agent` container.ts)
  * of kind "tilewise-policy" with blocks
  *   actor/params        f32 [paramCount]  flat W_0, b_0, W_1, b_1, ... (net/types.ts order)
  *   normalizer/mean     f64 [obsDim]      (absent when normalisation is off)

@@ -1,6 +1,6 @@
 /**
  * A recording wrapper around a TiledEnv for evaluation: it forwards every call and keeps, for
- * each evaluated episode, the time series a report plots (docs/evaluation-format.md):
+ * each evaluated episode, the time series a report plots (docs/formats.md):
  *
  *   drag     f32 [E, D]     domain-mean drag analogue of each decision (NaN once diverged)
  *   power    f32 [E, D]     domain-mean actuation power of each decision

@@ -93,7 +93,7 @@ function run(src: PolicySource, domains: DomainSpec[], o: EvaluateCommandOptions
     log: o.log,
     onEvent: o.onEvent,
   });
-  if (outDir) o.log(`\nevaluation data: ${outDir}/<domain>/evaluation.json, series.twdata (docs/evaluation-format.md)`);
+  if (outDir) o.log(`\nevaluation data: ${outDir}/<domain>/evaluation.json, series.twdata (docs/formats.md)`);
   if (src.runDir && outDir === join(src.runDir, RUN_FILES.evaluation)) recordInSummary(src.runDir, results, src.policy);
   return results;
 }
