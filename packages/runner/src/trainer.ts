@@ -473,6 +473,8 @@ async function runLoop(
       if (t.stop.seconds !== null && elapsed() >= t.stop.seconds) return `stop.seconds ${t.stop.seconds} reached`;
       return null;
     };
+    /** Mean training drag of the last logged interval (for the progress line). */
+    let lastTrainDrag: number | null = null;
     const progressUpdate = (): void => {
       const last = state.validations.at(-1);
       progress.update({
@@ -483,7 +485,7 @@ async function runLoop(
         metrics: {
           [`val ${spec.dragName}`]: last?.drag?.toFixed(3) ?? '-',
           best: state.best?.drag?.toFixed(3) ?? '-',
-          'train drag': w.dragCount ? (w.drag / w.dragCount).toFixed(3) : '-',
+          'train drag': lastTrainDrag === null ? '-' : lastTrainDrag.toFixed(3),
         },
       });
     };
@@ -564,6 +566,7 @@ async function runLoop(
           'train',
         );
         lastLog = { time: tt, step: state.step };
+        lastTrainDrag = w.dragCount ? w.drag / w.dragCount : null;
         w.clear();
       }
       if (t.validation.every > 0 && state.step % t.validation.every === 0) {
