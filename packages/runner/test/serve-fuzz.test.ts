@@ -149,7 +149,7 @@ function closingCase(rng: Rng): { bytes: Buffer; code: number | null } {
   switch (kind) {
     case 0: {
       const b = Buffer.from(good);
-      b[rng.int(4)] ^= 1 + rng.int(255); // bad magic
+      b[rng.int(4)]! ^= 1 + rng.int(255); // bad magic
       return { bytes: b, code: ERR.BAD_MAGIC };
     }
     case 1: {
