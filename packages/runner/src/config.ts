@@ -16,6 +16,11 @@ import { agentConfigSchema, type AgentConfig } from '@tilewise/agent';
 import { ConfigError, parseConfig, parseEnvConfig, type ParsedEnvConfig } from '@tilewise/envs';
 import { parse as parseYaml } from 'yaml';
 import { z } from 'zod';
+import { registerExternalEnv } from './external/env';
+
+// The runner's own env kind, "external" (a solver process over the wire protocol), registered
+// in every thread that parses or builds environments.
+registerExternalEnv();
 
 const nullablePositiveInt = (doc: string) => z.number().int().positive().nullable().default(null).describe(doc);
 

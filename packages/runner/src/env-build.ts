@@ -3,6 +3,11 @@
  * value), the same way in the trainer's thread and in worker threads.
  */
 import { parseEnvConfig, type EnvEvent, type TiledEnv } from '@tilewise/envs';
+import { registerExternalEnv } from './external/env';
+
+// The runner's own env kind, "external" (a solver process over the wire protocol), registered
+// in every thread that parses or builds environments.
+registerExternalEnv();
 
 export interface EnvBuildSpec {
   /** The resolved env section (as in a run's config.yaml). */

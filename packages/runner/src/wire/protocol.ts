@@ -292,3 +292,86 @@ export function encodeBatch(rows: number, width: number, values: Float32Array): 
 
 /** The payload size of a batch of `rows` x `width` float32. */
 export const batchBytes = (rows: number, width: number): number => 8 + 4 * rows * width;
+
+// --- environment link payloads ---------------------------------------------------------------
+
+/** What a solver declares in ENV_HELLO; tilewise checks it against its `env:` config. */
+export interface EnvHello {
+  readonly tilesX: number;
+  readonly tilesY: number;
+  readonly obsDim: number;
+  readonly actDim: number;
+  /** Most copies the solver can run at once (tilewise asks for B <= this in ENV_WELCOME). */
+  readonly maxCopies: number;
+  readonly episodeLength: number;
+  readonly actionBound: number;
+  readonly controlInterval: number;
+  /** Free-form description (JSON object text), e.g. {"name": "...", "dragName": "..."}. */
+  readonly info: string;
+}
+
+export const ENV_HELLO_FIXED = 40;
+
+/** ENV_HELLO: u32 tilesX, tilesY, obsDim, actDim, maxCopies, episodeLength; f64 actionBound, controlInterval; UTF-8 JSON. */
+export function encodeEnvHello(h: EnvHello): Buffer {
+  const info = Buffer.from(h.info, 'utf8');
+  const out = Buffer.alloc(ENV_HELLO_FIXED + info.length);
+  [h.tilesX, h.tilesY, h.obsDim, h.actDim, h.maxCopies, h.episodeLength].forEach((v, k) => out.writeUInt32LE(v, 4 * k));
+  out.writeDoubleLE(h.actionBound, 24);
+  out.writeDoubleLE(h.controlInterval, 32);
+  info.copy(out, ENV_HELLO_FIXED);
+  return out;
+}
+
+export function decodeEnvHello(p: Uint8Array): EnvHello {
+  if (p.length < ENV_HELLO_FIXED) throw new Error(`ENV_HELLO payload of ${p.length} bytes is shorter than ${ENV_HELLO_FIXED}`);
+  const b = Buffer.from(p.buffer, p.byteOffset, p.length);
+  const u = (k: number): number => b.readUInt32LE(4 * k);
+  return {
+    tilesX: u(0),
+    tilesY: u(1),
+    obsDim: u(2),
+    actDim: u(3),
+    maxCopies: u(4),
+    episodeLength: u(5),
+    actionBound: b.readDoubleLE(24),
+    controlInterval: b.readDoubleLE(32),
+    info: b.subarray(ENV_HELLO_FIXED).toString('utf8'),
+  };
+}
+
+/** Sizes of the environment link for B copies of T tiles. */
+export interface EnvShape {
+  readonly copies: number;
+  readonly tiles: number;
+  readonly obsDim: number;
+  readonly actDim: number;
+}
+
+/**
+ * Byte offsets of the TRANSITION payload (8-byte values first, so every array is aligned):
+ *   f64 drag[B*T], f64 actuationPower[B*T], f32 obs[B*T*obsDim], f32 reward[B*T],
+ *   u8 done[B], u8 truncated[B], u8 diverged[B].
+ */
+export function transitionLayout(s: EnvShape): { drag: number; power: number; obs: number; reward: number; done: number; truncated: number; diverged: number; bytes: number } {
+  const bt = s.copies * s.tiles;
+  const drag = 0;
+  const power = drag + 8 * bt;
+  const obs = power + 8 * bt;
+  const reward = obs + 4 * bt * s.obsDim;
+  const done = reward + 4 * bt;
+  const truncated = done + s.copies;
+  const diverged = truncated + s.copies;
+  return { drag, power, obs, reward, done, truncated, diverged, bytes: diverged + s.copies };
+}
+
+/** The exact payload size of each reply of the environment link (SNAPSHOT: at most). */
+export function envReplyBytes(s: EnvShape, maxSnapshotValues: number): Record<number, number> {
+  const bt = s.copies * s.tiles;
+  return {
+    [MSG.OBSERVATION]: 4 * bt * s.obsDim,
+    [MSG.TRANSITION]: transitionLayout(s).bytes,
+    [MSG.OPPOSITION]: 8 * bt * s.actDim,
+    [MSG.SNAPSHOT]: 8 * maxSnapshotValues,
+  };
+}
