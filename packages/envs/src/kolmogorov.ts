@@ -889,7 +889,7 @@ export class KolmogorovEnv implements TiledEnv {
   step(actions: Float32Array): KolmogorovStepOut {
     const { B, T } = this;
     const c = this.config;
-    clipActions('KolmogorovEnv', actions, this.amp, c.actionBound, T);
+    clipActions('KolmogorovEnv', actions, this.amp, c.actionBound, T, 'tile');
     this.applyForce();
     const m = c.controlSteps;
     this.uAcc.fill(0);

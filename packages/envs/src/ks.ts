@@ -34,6 +34,7 @@ import { Rng } from './random';
 import { cachedReference, referenceFromBlocks, type ReferenceValue } from './reference';
 import type { EnvKind } from './registry';
 import { differentiateSpectrum, halfSpectrumWavenumbers, twoThirdsMask } from './spectral';
+import { checkCopy, checkSeed, checkStateMeta, clipActions, restoreStateArray, TiledStepBuffers } from './tiled';
 
 // ---------------------------------------------------------------------------------------
 // Configuration
@@ -466,19 +467,12 @@ export class KsEnv implements TiledEnv {
   private readonly pAcc: Float64Array;
   private readonly costAcc: Float64Array;
   private readonly workAcc: Float64Array;
-  private readonly decisions: Int32Array;
   private readonly divergedNow: Uint8Array;
   private spinSolver: KsSolver | null = null;
 
-  private readonly obs: Float32Array;
-  private readonly reward: Float32Array;
-  private readonly drag: Float64Array;
-  private readonly power: Float64Array;
-  private readonly done: Uint8Array;
-  private readonly truncated: Uint8Array;
-  private readonly diverged: Uint8Array;
+  /** Step outputs, decision counters and end-of-decision flags (tiled.ts). */
+  private readonly buf: TiledStepBuffers;
   private readonly opp: Float64Array;
-  private readonly out: StepOut;
 
   constructor(config: KsConfig, options: KsEnvOptions) {
     // Re-validate: a hand-built object must satisfy the same rules as a parsed one.
@@ -584,32 +578,16 @@ export class KsEnv implements TiledEnv {
     this.costAcc = new Float64Array(B * T);
     this.workAcc = new Float64Array(B * T);
     this.forcingWork = new Float64Array(B * T);
-    this.decisions = new Int32Array(B);
     this.divergedNow = new Uint8Array(B);
-    this.obs = new Float32Array(B * T * obsDim);
-    this.reward = new Float32Array(B * T);
-    this.drag = new Float64Array(B * T);
-    this.power = new Float64Array(B * T);
-    this.done = new Uint8Array(B);
-    this.truncated = new Uint8Array(B);
-    this.diverged = new Uint8Array(B);
+    this.buf = new TiledStepBuffers(B, T, obsDim);
     this.opp = new Float64Array(B * A);
-    this.out = {
-      obs: this.obs,
-      reward: this.reward,
-      drag: this.drag,
-      actuationPower: this.power,
-      done: this.done,
-      truncated: this.truncated,
-      diverged: this.diverged,
-    };
   }
 
   // --- TiledEnv -------------------------------------------------------------------------
 
   reset(seeds: ArrayLike<number>): Float32Array {
     if (seeds.length !== this.B) throw new Error(`KsEnv.reset: expected ${this.B} seeds (one per copy), got ${seeds.length}`);
-    for (let b = 0; b < this.B; b++) checkSeed(seeds[b]!, `seeds[${b}]`);
+    for (let b = 0; b < this.B; b++) checkSeed('KsEnv', seeds[b]!, `seeds[${b}]`);
     const s = this.solver;
     s.fRe.fill(0);
     s.fIm.fill(0);
@@ -617,7 +595,7 @@ export class KsEnv implements TiledEnv {
     const steps = spinUpSteps(this.config.spinUpTime, this.config.dt);
     for (let i = 0; i < steps; i++) s.step();
     this.amp.fill(0);
-    this.decisions.fill(0);
+    this.buf.decisions.fill(0);
     this.divergedNow.fill(0);
     this.sample();
     for (let b = 0; b < this.B; b++) this.afterSampleCheck(b, 'spin-up');
@@ -625,10 +603,8 @@ export class KsEnv implements TiledEnv {
   }
 
   resetCopy(copy: number, seed: number): void {
-    if (!Number.isInteger(copy) || copy < 0 || copy >= this.B) {
-      throw new Error(`KsEnv.resetCopy: copy must be an integer in [0, ${this.B}), got ${copy}`);
-    }
-    checkSeed(seed, 'seed');
+    checkCopy('KsEnv.resetCopy', copy, this.B);
+    checkSeed('KsEnv', seed, 'seed');
     // Spin up alone in a one-copy solver: the batch-inner arithmetic is identical per copy,
     // so the result equals the batched reset bit for bit.
     if (!this.spinSolver) {
@@ -641,7 +617,7 @@ export class KsEnv implements TiledEnv {
     for (let i = 0; i < steps; i++) one.step();
     this.solver.copyStateFrom(one, 0, copy);
     for (let a = 0; a < this.A; a++) this.amp[copy * this.A + a] = 0;
-    this.decisions[copy] = 0;
+    this.buf.decisions[copy] = 0;
     this.divergedNow[copy] = 0;
     this.sample();
     this.afterSampleCheck(copy, 'spin-up');
@@ -653,7 +629,7 @@ export class KsEnv implements TiledEnv {
     this.sample();
     for (let b = 0; b < this.B; b++) if (this.divergedNow[b]) this.afterSampleCheck(b, 'observe');
     this.writeObs();
-    return this.obs;
+    return this.buf.obs;
   }
 
   step(actions: Float32Array): StepOut {
@@ -662,12 +638,7 @@ export class KsEnv implements TiledEnv {
     if (actions.length !== B * A) {
       throw new Error(`KsEnv.step: actions must have shape [B, T, actDim] = [${B}, ${T}, ${this.actDim}] (${B * A} values), got ${actions.length}`);
     }
-    const aMax = c.actionBound;
-    for (let i = 0; i < B * A; i++) {
-      const a = actions[i]!;
-      if (Number.isNaN(a)) throw new Error(`KsEnv.step: actions[${i}] is NaN (copy ${Math.floor(i / A)}, actuator ${i % A})`);
-      this.amp[i] = a > aMax ? aMax : a < -aMax ? -aMax : a;
-    }
+    clipActions('KsEnv', actions, this.amp, c.actionBound, A, 'actuator');
     // f [B, n] = sum_a amp_a h_a.
     const f = this.force;
     f.fill(0);
@@ -697,46 +668,34 @@ export class KsEnv implements TiledEnv {
     const invP0 = 1 / this.p0;
     const beta = c.reward.beta;
     const pen = c.reward.actuationPenalty;
-    this.done.fill(0);
-    this.truncated.fill(0);
-    this.diverged.fill(0);
+    const { drag, actuationPower: power, reward } = this.buf;
+    this.buf.beginDecision();
     for (let b = 0; b < B; b++) {
-      this.decisions[b]! += 1;
       if (this.divergedNow[b]) {
-        this.diverged[b] = 1;
-        this.done[b] = 1;
-        for (let t = 0; t < T; t++) {
-          const i = b * T + t;
-          this.drag[i] = NaN;
-          this.power[i] = NaN;
-          this.forcingWork[i] = NaN;
-          this.reward[i] = c.reward.onDivergence;
-        }
+        this.buf.markDiverged(b, c.reward.onDivergence);
+        for (let t = 0; t < T; t++) this.forcingWork[b * T + t] = NaN;
         continue;
       }
       let sDomain = 0;
       for (let t = 0; t < T; t++) {
         const i = b * T + t;
-        this.drag[i] = this.pAcc[i]! * invM * invP0;
-        this.power[i] = this.costAcc[i]! * invM * invP0;
+        drag[i] = this.pAcc[i]! * invM * invP0;
+        power[i] = this.costAcc[i]! * invM * invP0;
         this.forcingWork[i] = this.workAcc[i]! * invM * invP0;
-        sDomain += 1 - this.drag[i]! - pen * this.power[i]!;
+        sDomain += 1 - drag[i]! - pen * power[i]!;
       }
       sDomain /= T;
       for (let t = 0; t < T; t++) {
         const i = b * T + t;
-        const sTile = 1 - this.drag[i]! - pen * this.power[i]!;
-        this.reward[i] = (1 - beta) * sTile + beta * sDomain;
+        const sTile = 1 - drag[i]! - pen * power[i]!;
+        reward[i] = (1 - beta) * sTile + beta * sDomain;
       }
-      if (this.decisions[b]! >= c.episodeLength) {
-        this.done[b] = 1;
-        this.truncated[b] = 1;
-      }
+      this.buf.countDecision(b, c.episodeLength);
     }
     // A divergence during reset is reported by the first step after it; cleared once reported.
     this.divergedNow.fill(0);
     this.writeObs();
-    return this.out;
+    return this.buf.out;
   }
 
   oppositionSignal(): Float64Array {
@@ -789,7 +748,7 @@ export class KsEnv implements TiledEnv {
         fRe: s.fRe.slice(),
         fIm: s.fIm.slice(),
         amp: this.amp.slice(),
-        decisions: this.decisions.slice(),
+        decisions: this.buf.decisions.slice(),
         divergedNow: this.divergedNow.slice(),
       },
     };
@@ -797,34 +756,23 @@ export class KsEnv implements TiledEnv {
 
   /** Restore a state from `getState` of a KsEnv with the same config and copies (else throws naming the field). */
   setState(state: EnvState): void {
-    const m = state?.meta;
-    const expect: Record<string, unknown> = {
+    const who = 'KsEnv.setState';
+    checkStateMeta(who, state, {
       format: KS_STATE_FORMAT,
       kind: 'ks',
       copies: this.B,
       points: this.n,
       length: this.config.length,
       actuators: this.A,
-    };
-    for (const [k, v] of Object.entries(expect)) {
-      if (m?.[k] !== v) throw new Error(`KsEnv.setState: saved ${k} ${JSON.stringify(m?.[k])} differs from this env's ${JSON.stringify(v)}`);
-    }
+    });
     const s = this.solver;
-    const put = (name: string, dst: Float64Array | Int32Array | Uint8Array): void => {
-      const src = state.arrays[name];
-      if (!src || src.constructor !== dst.constructor || src.length !== dst.length) {
-        throw new Error(
-          `KsEnv.setState: array "${name}" must be a ${dst.constructor.name} of length ${dst.length}, got ${src ? `${src.constructor.name} of length ${src.length}` : 'nothing'}`,
-        );
-      }
-      dst.set(src as never);
-    };
+    const put = (name: string, dst: Float64Array | Int32Array | Uint8Array): void => restoreStateArray(who, state, name, dst);
     put('vRe', s.vRe);
     put('vIm', s.vIm);
     put('fRe', s.fRe);
     put('fIm', s.fIm);
     put('amp', this.amp);
-    put('decisions', this.decisions);
+    put('decisions', this.buf.decisions);
     put('divergedNow', this.divergedNow);
     // A copy flagged as diverged was zeroed when flagged; sampling it gives the zeros it had.
     this.sample();
@@ -906,7 +854,7 @@ export class KsEnv implements TiledEnv {
       this.onEvent?.({
         kind: 'diverged',
         copy: b,
-        message: `ks copy ${b} diverged during ${phase} after ${this.decisions[b]} decisions: ${finite ? `max |u| = ${maxAbs.toPrecision(4)} > ${bound}` : 'non-finite u'}`,
+        message: `ks copy ${b} diverged during ${phase} after ${this.buf.decisions[b]} decisions: ${finite ? `max |u| = ${maxAbs.toPrecision(4)} > ${bound}` : 'non-finite u'}`,
       });
     }
     const m = this.solver.nSpec;
@@ -925,13 +873,14 @@ export class KsEnv implements TiledEnv {
     const S = this.sensorsPerObs;
     const obsDim = this.spec.obsDim;
     const grad = this.config.senseGradient;
+    const obs = this.buf.obs;
     for (let b = 0; b < B; b++) {
       for (let t = 0; t < T; t++) {
         const o = (b * T + t) * obsDim;
         for (let s = 0; s < S; s++) {
           const p = b * this.n + this.sensorIndex[t * S + s]!;
-          this.obs[o + s] = this.u[p]!;
-          if (grad) this.obs[o + S + s] = this.ux[p]!;
+          obs[o + s] = this.u[p]!;
+          if (grad) obs[o + S + s] = this.ux[p]!;
         }
       }
     }
@@ -941,9 +890,6 @@ export class KsEnv implements TiledEnv {
 /** Format of `KsEnv.getState`. */
 const KS_STATE_FORMAT = 1;
 
-function checkSeed(seed: number, what: string): void {
-  if (!Number.isFinite(seed)) throw new Error(`KsEnv: ${what} must be a finite number, got ${seed}`);
-}
 
 // ---------------------------------------------------------------------------------------
 // P0 and the registry entry

@@ -77,15 +77,15 @@ export class TiledStepBuffers {
 
 /**
  * Clip `actions` ([B, T, actDim], length `amp.length`) to +-bound into `amp`; a NaN throws
- * naming its copy and component.
+ * naming its copy and its index within the copy (called `component`, e.g. "actuator").
  */
-export function clipActions(who: string, actions: Float32Array, amp: Float64Array, bound: number, perCopy: number): void {
+export function clipActions(who: string, actions: Float32Array, amp: Float64Array, bound: number, perCopy: number, component = 'component'): void {
   if (actions.length !== amp.length) {
     throw new Error(`${who}.step: actions must have shape [B, T, actDim] (${amp.length} values), got ${actions.length}`);
   }
   for (let i = 0; i < amp.length; i++) {
     const a = actions[i]!;
-    if (Number.isNaN(a)) throw new Error(`${who}.step: actions[${i}] is NaN (copy ${Math.floor(i / perCopy)}, component ${i % perCopy})`);
+    if (Number.isNaN(a)) throw new Error(`${who}.step: actions[${i}] is NaN (copy ${Math.floor(i / perCopy)}, ${component} ${i % perCopy})`);
     amp[i] = a > bound ? bound : a < -bound ? -bound : a;
   }
 }
