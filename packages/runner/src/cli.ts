@@ -4,6 +4,7 @@
  * error, 2 usage or configuration error (the message names the field path and value).
  */
 import { Command, CommanderError, Option } from 'commander';
+import { BACKEND_CHOICES, type BackendChoice } from '@tilewise/agent';
 import { ConfigError, envKinds, type EnvEvent } from '@tilewise/envs';
 import { stringify as toYaml } from 'yaml';
 import { loadRunConfig, resolvedConfig, type RunConfig } from './config';
@@ -93,6 +94,13 @@ function policyChoice(opts: Record<string, unknown>): 'best' | 'latest' {
   const which = opts.policy as string;
   if (which !== 'best' && which !== 'latest') throw new ConfigError([`--policy: expected best or latest (got ${JSON.stringify(which)})`]);
   return which;
+}
+
+/** --backend (a network backend name of the agent config). */
+function backendChoice(opts: Record<string, unknown>): BackendChoice {
+  const b = opts.backend as string;
+  if (!BACKEND_CHOICES.includes(b as BackendChoice)) throw new ConfigError([`--backend: expected one of ${BACKEND_CHOICES.join(', ')} (got ${JSON.stringify(b)})`]);
+  return b as BackendChoice;
 }
 
 function eventLogger(io: Io, quiet: boolean): (e: EnvEvent) => void {
@@ -320,10 +328,16 @@ export const COMMANDS: CommandEntry[] = [
         .argument('<source>', 'a run directory, a .policy file, a JSON export or an ONNX export')
         .option('--input <file>', 'observations (default: standard input)')
         .option('--format <fmt>', 'jsonl (an array of obsDim numbers, or of such arrays, per line) or csv (one tile per row); default from the file name, else jsonl')
-        .option('--policy <which>', 'for a run directory: best or latest', 'best');
+        .option('--policy <which>', 'for a run directory: best or latest', 'best')
+        .option('--backend <name>', `network backend for a run, .policy or JSON source: ${BACKEND_CHOICES.join(', ')}`, 'auto');
     },
     async run(args, opts, io) {
-      const lines = await actCommand(args[0]!, { input: opts.input as string | undefined, format: opts.format as ObservationFormat | undefined, which: policyChoice(opts) });
+      const lines = await actCommand(args[0]!, {
+        input: opts.input as string | undefined,
+        format: opts.format as ObservationFormat | undefined,
+        which: policyChoice(opts),
+        backend: backendChoice(opts),
+      });
       for (const l of lines) io.out(l);
       return EXIT_OK;
     },
@@ -338,6 +352,7 @@ export const COMMANDS: CommandEntry[] = [
         .option('--max-tiles <n>', 'most tiles in one request', positiveInt('max-tiles'), 4096)
         .option('--max-connections <n>', 'most connections open at once', positiveInt('max-connections'), 64)
         .option('--policy <which>', 'for a run directory: best or latest', 'best')
+        .option('--backend <name>', `network backend: ${BACKEND_CHOICES.join(', ')}`, 'auto')
         .option('-q, --quiet', 'no connection lines');
     },
     async run(args, opts, io) {
@@ -351,6 +366,7 @@ export const COMMANDS: CommandEntry[] = [
           maxTiles: opts.maxTiles as number,
           maxConnections: opts.maxConnections as number,
           which: policyChoice(opts),
+          backend: backendChoice(opts),
           log: (l) => (opts.quiet && !l.startsWith('serving') ? undefined : io.err(l)),
           signal: controller.signal,
         });

@@ -15,6 +15,7 @@
  * Numbers are printed as the shortest decimal that reads back to the same float32.
  */
 import { readFileSync } from 'node:fs';
+import type { BackendChoice } from '@tilewise/agent';
 import { ConfigError } from '@tilewise/envs';
 import { PolicyEvaluator } from '../export/evaluator';
 import { float32Text } from '../export/model';
@@ -107,12 +108,14 @@ export interface ActOptions {
   readonly input?: string;
   readonly format?: ObservationFormat;
   readonly which?: 'best' | 'latest';
+  /** Network backend for tilewise sources (default auto, as the agent config). */
+  readonly backend?: BackendChoice;
   /** Read standard input (tests pass text instead). */
   readonly stdin?: () => string;
 }
 
 /** A batched policy from any source: tilewise's backend, or onnxruntime for a .onnx file. */
-async function openRunner(source: string, which: 'best' | 'latest'): Promise<{ obsDim: number; actDim: number; run(obs: Float32Array, tiles: number): Promise<Float32Array>; close(): Promise<void> }> {
+async function openRunner(source: string, which: 'best' | 'latest', backend: BackendChoice): Promise<{ obsDim: number; actDim: number; run(obs: Float32Array, tiles: number): Promise<Float32Array>; close(): Promise<void> }> {
   if (source.toLowerCase().endsWith('.onnx')) {
     const bytes = readFileSync(source);
     const meta = onnxMetadataProps(bytes)['tilewise.metadata'];
@@ -128,7 +131,7 @@ async function openRunner(source: string, which: 'best' | 'latest'): Promise<{ o
     };
   }
   const input = openExportSource(source, which);
-  const ev = await PolicyEvaluator.create(input.snapshot);
+  const ev = await PolicyEvaluator.create(input.snapshot, backend);
   return { obsDim: ev.obsDim, actDim: ev.actDim, run: async (obs, tiles) => ev.act(obs, tiles), close: async () => ev.dispose() };
 }
 
@@ -137,7 +140,7 @@ export async function actCommand(source: string, o: ActOptions): Promise<string[
   const fromStdin = o.input === undefined || o.input === '-';
   const format: ObservationFormat = o.format ?? (!fromStdin && o.input!.toLowerCase().endsWith('.csv') ? 'csv' : 'jsonl');
   if (format !== 'jsonl' && format !== 'csv') throw new ConfigError([`--format: expected jsonl or csv (got ${JSON.stringify(format)})`]);
-  const runner = await openRunner(source, o.which ?? 'best');
+  const runner = await openRunner(source, o.which ?? 'best', o.backend ?? 'auto');
   try {
     let text: string;
     try {

@@ -2,6 +2,7 @@
  * `tilewise serve <source>`: the policy server (serve/server.ts) on 127.0.0.1 by default, until
  * the abort signal (SIGINT/SIGTERM from the command line).
  */
+import type { BackendChoice } from '@tilewise/agent';
 import { ConfigError } from '@tilewise/envs';
 import { PolicyEvaluator } from '../export/evaluator';
 import { buildExportModel } from '../export/model';
@@ -17,6 +18,8 @@ export interface ServeOptions {
   readonly maxTiles?: number;
   readonly maxConnections?: number;
   readonly which?: 'best' | 'latest';
+  /** Network backend (default auto, as the agent config). */
+  readonly backend?: BackendChoice;
   /** Called once listening, with the bound address. */
   readonly onListening?: (a: Address) => void;
   readonly log?: (line: string) => void;
@@ -32,7 +35,7 @@ export async function serveCommand(source: string, o: ServeOptions): Promise<voi
   }
   const input = openExportSource(source, o.which ?? 'best');
   const model = buildExportModel(input, `policy ${source}`);
-  const evaluator = await PolicyEvaluator.create(input.snapshot);
+  const evaluator = await PolicyEvaluator.create(input.snapshot, o.backend ?? 'auto');
   const server = new PolicyServer({
     policy: evaluator,
     actionBound: model.actionBound,
