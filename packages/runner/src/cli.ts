@@ -16,6 +16,7 @@ import { exportCommand, parseFormats } from './commands/export-policy';
 import { DEFAULT_SERVE_ADDRESS, serveCommand } from './commands/serve';
 import { createProgress, noProgress, type Progress } from './progress';
 import { resumeRun, train, type TrainSummary } from './trainer';
+import { SWEEP_COMMANDS } from './sweep/commands';
 
 export const EXIT_OK = 0;
 export const EXIT_RUNTIME = 1;
@@ -56,7 +57,7 @@ const processIo: Io = {
   },
 };
 
-interface CommandEntry {
+export interface CommandEntry {
   readonly name: string;
   readonly summary: string;
   /** Declare arguments and options on `cmd`. */
@@ -377,6 +378,7 @@ export const COMMANDS: CommandEntry[] = [
       return EXIT_OK;
     },
   },
+  ...SWEEP_COMMANDS,
 ];
 
 /** Build the program; `io` receives all output (tests capture it). */
