@@ -41,7 +41,7 @@ import { etdrk4Coefficients, Etdrk4Stepper, type NonlinearTerm } from './etdrk4'
 import { Fft2 } from './fft2';
 import { Rng } from './random';
 import { twoThirdsMask } from './spectral';
-import { checkCopy, checkSeed, checkStateMeta, clipActions, mod, restoreStateArray, TiledStepBuffers } from './tiled';
+import { checkCopy, checkSeed, checkStateMeta, clipActions, mod, referenceSchema, restoreStateArray, rewardSchema, TiledStepBuffers } from './tiled';
 
 /** Format of `KolmogorovEnv.getState` (bumped when its arrays change). */
 const KOLMOGOROV_STATE_FORMAT = 1;
@@ -469,44 +469,15 @@ export const kolmogorovConfigSchema = z
       .positive()
       .default(100)
       .describe('A copy whose kinetic energy exceeds this (or is not finite) has diverged (default 100; E_lam = 1.5625 at Re 40, n 4).'),
-    reward: z
-      .strictObject({
-        beta: z
-          .number()
-          .min(0)
-          .max(1)
-          .default(0)
-          .describe('Weight of the domain-wide score in each tile reward: r = (1-beta) s_tile + beta s_domain (default 0).'),
-        actuationPenalty: z
-          .number()
-          .nonnegative()
-          .finite()
-          .default(0)
-          .describe('Weight c of actuation power in the score s = 1 - Cf/Cf0 - c Pi+/P0 (default 0).'),
-        meanFlowFloor: z
-          .number()
-          .positive()
-          .max(1)
-          .default(0.05)
-          .describe('Tile mean flow is floored at this fraction of U_lam before Cf = 2/(n U^2) is formed, so Cf <= Cf_lam/floor^2 (default 0.05).'),
-        onDivergence: z.number().finite().default(-10).describe('Reward of every tile of a copy that diverged (default -10).'),
-      })
-      .prefault({})
-      .describe('Reward shaping.'),
-    reference: z
-      .strictObject({
-        time: z.number().positive().finite().default(500).describe('Uncontrolled time per copy averaged to measure Cf0 and I0 (default 500).'),
-        copies: z.number().int().positive().default(4).describe('Independent copies averaged to measure Cf0 and I0 (default 4).'),
-        blockTime: z
-          .number()
-          .positive()
-          .finite()
-          .default(50)
-          .describe('Length of the blocks whose means estimate the uncertainty of Cf0 and I0 (default 50).'),
-        seed: z.number().int().default(20240).describe('Seed of the reference measurement runs (default 20240).'),
-      })
-      .prefault({})
-      .describe('How Cf0 (uncontrolled mean tile Cf) and I0 (uncontrolled mean power input) are measured (then cached).'),
+    reward: rewardSchema('s = 1 - Cf/Cf0 - c Pi+/P0', {
+      meanFlowFloor: z
+        .number()
+        .positive()
+        .max(1)
+        .default(0.05)
+        .describe('Tile mean flow is floored at this fraction of U_lam before Cf = 2/(n U^2) is formed, so Cf <= Cf_lam/floor^2 (default 0.05).'),
+    }),
+    reference: referenceSchema('Cf0 (uncontrolled mean tile Cf) and I0 (uncontrolled mean power input)', { time: 500, copies: 4 }),
   })
   .superRefine((c, ctx) => {
     const bad = (path: (string | number)[], message: string, input: unknown): void => {

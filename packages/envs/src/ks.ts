@@ -34,7 +34,7 @@ import { Rng } from './random';
 import { cachedReference, referenceFromBlocks, type ReferenceValue } from './reference';
 import type { EnvKind } from './registry';
 import { differentiateSpectrum, halfSpectrumWavenumbers, twoThirdsMask } from './spectral';
-import { checkCopy, checkSeed, checkStateMeta, clipActions, restoreStateArray, TiledStepBuffers } from './tiled';
+import { checkCopy, checkSeed, checkStateMeta, clipActions, referenceSchema, restoreStateArray, rewardSchema, TiledStepBuffers } from './tiled';
 
 // ---------------------------------------------------------------------------------------
 // Configuration
@@ -97,38 +97,8 @@ export const ksConfigSchema = z
       .positive()
       .default(100)
       .describe('A copy whose max |u| exceeds this (or is not finite) has diverged (default 100; the attractor stays below ~5).'),
-    reward: z
-      .strictObject({
-        beta: z
-          .number()
-          .min(0)
-          .max(1)
-          .default(0)
-          .describe('Weight of the domain-wide score in each tile reward: r = (1-beta) s_tile + beta s_domain (default 0).'),
-        actuationPenalty: z
-          .number()
-          .nonnegative()
-          .finite()
-          .default(0)
-          .describe('Weight c of actuation power in the score s = 1 - (P + c Pi+)/P0 (default 0).'),
-        onDivergence: z.number().finite().default(-10).describe('Reward of every tile of a copy that diverged (default -10).'),
-      })
-      .prefault({})
-      .describe('Reward shaping.'),
-    reference: z
-      .strictObject({
-        time: z.number().positive().finite().default(2000).describe('Uncontrolled time per copy averaged to measure P0 (default 2000).'),
-        copies: z.number().int().positive().default(8).describe('Independent copies averaged to measure P0 (default 8).'),
-        blockTime: z
-          .number()
-          .positive()
-          .finite()
-          .default(50)
-          .describe('Length of the blocks whose means estimate the uncertainty of P0 (default 50).'),
-        seed: z.number().int().default(20240).describe('Seed of the P0 measurement runs (default 20240).'),
-      })
-      .prefault({})
-      .describe('How P0, the long-time uncontrolled mean of P, is measured (then cached).'),
+    reward: rewardSchema('s = 1 - (P + c Pi+)/P0', {}),
+    reference: referenceSchema('P0', { time: 2000, copies: 8 }),
   })
   .superRefine((c, ctx) => {
     const bad = (path: string[], message: string, input: unknown): void => {

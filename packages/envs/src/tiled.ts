@@ -8,6 +8,7 @@
  * copy that diverged gets `onDivergence` on every tile, NaN drag and actuation power, and
  * done = 1 with truncated = 0; a copy that reaches the time limit gets done = truncated = 1.
  */
+import { z } from 'zod';
 import type { EnvState, StepOut } from './contract';
 
 export class TiledStepBuffers {
@@ -123,4 +124,44 @@ export function restoreStateArray(who: string, state: EnvState, name: string, ds
     );
   }
   dst.set(src as never);
+}
+
+/**
+ * The `reward:` section shared by tiled surrogates: beta (domain weight), the actuation penalty
+ * c in the score `score` (documented per surrogate), the divergence reward, plus `extra` fields,
+ * each of which must have a default.
+ */
+export function rewardSchema<E extends z.ZodRawShape>(score: string, extra: E) {
+  return z
+    .strictObject({
+      beta: z
+        .number()
+        .min(0)
+        .max(1)
+        .default(0)
+        .describe('Weight of the domain-wide score in each tile reward: r = (1-beta) s_tile + beta s_domain (default 0).'),
+      actuationPenalty: z.number().nonnegative().finite().default(0).describe(`Weight c of actuation power in the score ${score} (default 0).`),
+      onDivergence: z.number().finite().default(-10).describe('Reward of every tile of a copy that diverged (default -10).'),
+      ...extra,
+    })
+    .prefault({} as never) // every field has a default (callers' extra fields too), so {} parses
+    .describe('Reward shaping.');
+}
+
+/** The `reference:` section: how a surrogate's reference value(s) `what` are measured (then cached). */
+export function referenceSchema(what: string, defaults: { time: number; copies: number }) {
+  return z
+    .strictObject({
+      time: z.number().positive().finite().default(defaults.time).describe(`Uncontrolled time per copy averaged to measure ${what} (default ${defaults.time}).`),
+      copies: z.number().int().positive().default(defaults.copies).describe(`Independent copies averaged to measure ${what} (default ${defaults.copies}).`),
+      blockTime: z
+        .number()
+        .positive()
+        .finite()
+        .default(50)
+        .describe(`Length of the blocks whose means estimate the uncertainty of ${what} (default 50).`),
+      seed: z.number().int().default(20240).describe(`Seed of the ${what} measurement runs (default 20240).`),
+    })
+    .prefault({})
+    .describe(`How ${what} is measured (then cached).`);
 }
