@@ -28,6 +28,9 @@
  *   spectral state omega  Float64Array re/im [modes][B], modes = nx * nky, nky = ny/2+1,
  *                         mode k = my*nx + ix (layout and FFT conventions of fft2.ts)
  *   physical fields       Float64Array [ny][nx][C]; grid point (i, j) at x = i Lx/nx, y = j Ly/ny
+ * Volumes and pages of the references cited in this file and its tests are recalled from
+ * memory; the values checked against them are stated with each check.
+ *
  * Diagnostics are area means <.> = (1/(Lx Ly)) integral over the box:
  *   E = <|u|^2>/2, I = <u . sin(n y) e_x> (energy input), D = Re^-1 <|grad u|^2> = Re^-1 <omega^2>,
  *   laminar I_lam = D_lam = Re/(2 n^2), E_lam = Re^2/(4 n^4).
