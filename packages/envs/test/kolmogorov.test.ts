@@ -1,3 +1,6 @@
+import { mkdtempSync, readdirSync, rmSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
 import { EigenvalueDecomposition, Matrix } from 'ml-matrix';
 import { describe, expect, it } from 'vitest';
 import {
@@ -189,6 +192,17 @@ describe('KolmogorovSolver: exact solutions and published values', () => {
   });
 });
 
+describe('KolmogorovSolver: diagnostics', () => {
+  it('dissipationAll equals budget().dissipation for every copy of a batch', () => {
+    const s = new KolmogorovSolver(physics({ grid: [32, 32] }), 3);
+    const rng = new Rng('diss');
+    for (let b = 0; b < 3; b++) s.setVorticity(b, field(s, () => rng.normal()));
+    const d = new Float64Array(3);
+    s.dissipationAll(d);
+    for (let b = 0; b < 3; b++) expect(Math.abs(d[b]! - s.budget(b).dissipation)).toBeLessThan(1e-12 * d[b]!);
+  });
+});
+
 describe('KolmogorovSolver: energy budget', () => {
   it('dE/dt = I - D - 2 mu E + <u . f_jets>, instantaneously to round-off and integrated over time', () => {
     // The energy equation of the forced Navier-Stokes equations; with the 2/3 rule the
@@ -286,9 +300,14 @@ describe('KolmogorovEnv', () => {
 
   it('is registered as kind "kolmogorov" and built from a raw env section with an explicit reference', () => {
     expect(envKinds()).toContain('kolmogorov');
-    const env = createEnv({ kind: 'kolmogorov', points: [32, 32], spinUpTime: 1, reference: { time: 1, blockTime: 1, copies: 1 } }, { copies: 1, reference: 20, cacheDir: '/nonexistent/not-written' });
+    const cacheDir = mkdtempSync(join(tmpdir(), 'tilewise-kolmogorov-ref-'));
+    const env = createEnv({ kind: 'kolmogorov', points: [32, 32], spinUpTime: 1, reference: { time: 1, blockTime: 1, copies: 1 } }, { copies: 1, reference: 20, cacheDir });
     expect(env.spec.kind).toBe('kolmogorov');
     expect(env.spec.tileGrid).toEqual([4, 2]);
+    // The explicit reference replaces Cf0; I0 is measured once and cached beside it.
+    expect((env as KolmogorovEnv).cf0).toBe(20);
+    expect(readdirSync(cacheDir).some((f) => f.startsWith('kolmogorov-i0-'))).toBe(true);
+    rmSync(cacheDir, { recursive: true });
   });
 
   it('shifting the flow by one tile in x or in y permutes observations, opposition signals and rewards', () => {
