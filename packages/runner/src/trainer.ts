@@ -37,6 +37,9 @@ import { policyEnvSpec, savePolicy, type PolicyFile } from './policy';
 import { noProgress, type Progress } from './progress';
 import { createTrainSide, createValidator, type TrainSide, type Validator } from './worker';
 
+/** Longest wall-clock stretch, in milliseconds, the training loop runs without yielding to the event loop. */
+const YIELD_MS = 100;
+
 /** File names inside a run directory (docs/runner.md). */
 export const RUN_FILES = {
   config: 'config.yaml',
@@ -490,6 +493,10 @@ async function runLoop(
       });
     };
     let lastLog = { time: now(), step: state.step };
+    // With train.parallel false every await in the loop is on a settled promise, which never lets
+    // the event loop run: signal handlers and messages (a sweep cancelling its run) would wait for
+    // the end of training. So the loop yields to the event loop every YIELD_MS of wall time.
+    let lastYield = performance.now();
     for (;;) {
       const reason = stopCheck();
       if (reason) {
@@ -577,6 +584,10 @@ async function runLoop(
       const byTime = t.checkpoint.everySeconds > 0 && now() - lastCheckpointTime >= t.checkpoint.everySeconds;
       if (byStep || byTime) await checkpoint();
       progressUpdate();
+      if (performance.now() - lastYield >= YIELD_MS) {
+        await new Promise((r) => setImmediate(r));
+        lastYield = performance.now();
+      }
     }
 
     // --- the end -----------------------------------------------------------------------------
