@@ -190,6 +190,38 @@ describe('JSON export', () => {
   });
 });
 
+describe.skipIf(skipWithout('gcc') || skipWithout('gfortran'))('extreme weights', () => {
+  it('subnormal, tiny and huge float32 values survive every format exactly enough (C and Fortran compiled with -Werror)', async () => {
+    const c = cases[0]!;
+    const params = c.policy.snapshot.params.slice();
+    const subnormals = [1e-45, -1.4e-45, 2.8e-45, 9.99e-39, -5.877472e-39, 1.1754942e-38, -2.5e-30, 3.3e-7];
+    subnormals.forEach((v, k) => (params[k] = v)); // W0[0, 0..7]
+    const b0 = 24 * 64; // b0 follows W0 [24, 64]
+    params[b0] = -3.0e38; // a hidden unit that never fires
+    params[b0 + 1] = 1e-40;
+    const snapshot = { ...c.policy.snapshot, params };
+    const input = { ...c.policy.input, snapshot };
+    const dir = mkdtempSync(join(tmpdir(), 'tilewise-export-extreme-'));
+    exportPolicy(input, { outDir: dir, formats: ['onnx', 'c', 'fortran', 'json'] });
+    const ev = await PolicyEvaluator.create(snapshot, 'simd');
+    const ref = ev.act(c.obs, N).slice();
+    ev.dispose();
+    expectSpread(ref, c.policy.spec.actionBound);
+    expect(loadPolicyJson(join(dir, 'tilewise_policy.json')).snapshot.params).toEqual(params);
+    writeFileSync(join(dir, 'obs.f64'), new Float64Array(c.obs));
+    compile('gcc', ['-std=c99', '-O2', '-Wall', '-Wextra', '-Werror', '-I', dir, join(fixtures, 'export-parity.c'), join(dir, 'tilewise_policy.c'), '-o', join(dir, 'c'), '-lm']);
+    compile('gfortran', ['-std=f2008', '-O2', '-Wall', '-Werror', '-J', dir, join(dir, 'tilewise_policy.f90'), join(fixtures, 'export-parity.f90'), '-o', join(dir, 'f')]);
+    execFileSync(join(dir, 'c'), [join(dir, 'obs.f64'), join(dir, 'c.f64')]);
+    execFileSync(join(dir, 'f'), [join(dir, 'obs.f64'), join(dir, 'f.f64')]);
+    expect(maxAbsDiff(readF64(join(dir, 'c.f64')), ref)).toBeLessThanOrEqual(TOL);
+    expect(maxAbsDiff(readF64(join(dir, 'f.f64')), ref)).toBeLessThanOrEqual(TOL);
+    const session = await ort.InferenceSession.create(join(dir, 'tilewise_policy.onnx'));
+    const out = await session.run({ obs: new ort.Tensor('float32', c.obs, [N, 24]) });
+    expect(maxAbsDiff(out.actions!.data as Float32Array, ref)).toBeLessThanOrEqual(TOL);
+    await session.release();
+  });
+});
+
 describe('export input checks', () => {
   const base = (): ExportInput => cases[0]!.policy.input;
 
@@ -226,7 +258,7 @@ describe('export input checks', () => {
       expect(Math.fround(Number(t))).toBe(v);
       expect(t.replace(/^-/, '').replace(/e.*$/, '').replace('.', '').replace(/^0+/, '').length).toBeLessThanOrEqual(9);
     }
-    for (const v of [0, 1, -2, 1e-45, 3.4028234663852886e38]) expect(Math.fround(Number(float32Text(v)))).toBe(Math.fround(v));
+    for (const v of [0, 1, -2, 1e-45, -2.8e-45, 9.99e-39, 1.1754942e-38, 3.4028234663852886e38]) expect(Math.fround(Number(float32Text(v)))).toBe(Math.fround(v));
   });
 
   it('the config hash ignores key order and changes with any value', () => {

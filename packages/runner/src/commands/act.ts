@@ -20,6 +20,7 @@ import { ConfigError } from '@tilewise/envs';
 import { PolicyEvaluator } from '../export/evaluator';
 import { float32Text } from '../export/model';
 import { onnxMetadataProps } from '../export/onnx';
+import { loadOnnxRuntime } from '../export/onnx-runtime';
 import { openExportSource } from '../export/source';
 
 export type ObservationFormat = 'jsonl' | 'csv';
@@ -121,7 +122,7 @@ async function openRunner(source: string, which: 'best' | 'latest', backend: Bac
     const meta = onnxMetadataProps(bytes)['tilewise.metadata'];
     if (!meta) throw new ConfigError([`${source}: an ONNX file without tilewise metadata (metadata_props "tilewise.metadata")`]);
     const { obsDim, actDim } = JSON.parse(meta) as { obsDim: number; actDim: number };
-    const ort = await import('onnxruntime-node');
+    const ort = await loadOnnxRuntime();
     const session = await ort.InferenceSession.create(bytes);
     return {
       obsDim,

@@ -6,11 +6,12 @@
  *     obs      [count][NAME_OBS_DIM]  row-major, one tile per row (the tile-major order of
  *                                     the environment contract), raw observations
  *     actions  [count][NAME_ACT_DIM]  in [-NAME_ACTION_BOUND, NAME_ACTION_BOUND]
- * Re-entrant (no state, no allocation: the work arrays are on the stack, two rows of the widest
- * layer). Arithmetic as model.ts describes: observations rounded to float32 as the environment
- * produces them, normalisation and clipping in double then rounded to float32, each layer summed in double over float32
- * weights and rounded to float32, tanh from libm. A non-finite observation gives NaN actions for
- * its tile.
+ * Re-entrant: no state, no allocation (the work arrays are on the stack, at most 64 KiB for layers
+ * up to 4096 wide). Tiles are processed in blocks of up to 8 that share each weight row as it is
+ * loaded. Arithmetic as model.ts describes: observations rounded to float32 as the environment
+ * produces them, normalisation and clipping in double then rounded to float32, each layer summed
+ * in double over float32 weights (in order of the input index, so blocking changes no result)
+ * and rounded to float32, tanh from libm. A non-finite observation gives NaN actions for its tile.
  */
 import { checkExportName, float32Text, float64Text, literalLines, summaryLines, wrapText, type ExportModel } from './model';
 
@@ -27,6 +28,41 @@ function cString(text: string, indent: string): string[] {
     lines.push(`${indent}"${chunk}"`);
   }
   return lines.length ? lines : [`${indent}""`];
+}
+
+/** Activation of a float `s`, as C. */
+const C_ACTIVATION = { relu: 's > 0.0f ? s : 0.0f', tanh: '(float)tanh((double)s)', linear: 's' } as const;
+
+/**
+ * One function per layer, its widths as constants (so gcc -O2 vectorises the loops, which it
+ * does not for run-time trip counts): for tiles t < nb, y[t] = act(float32(b + sum_i x[t][i] W[i][:])),
+ * summed in double in order of i.
+ */
+function layerFunctions(m: ExportModel): string[] {
+  return m.layers.flatMap((l, k) => [
+    `/* layer ${k}: ${l.nIn} -> ${l.nOut}, ${l.activation} */`,
+    `static void layer${k}(float x[][WIDEST], float y[][WIDEST], int nb) {`,
+    '  double acc[BLOCK][WIDEST];',
+    '  int i, o, t;',
+    '  for (t = 0; t < nb; t++)',
+    `    for (o = 0; o < ${l.nOut}; o++) acc[t][o] = (double)b${k}[o];`,
+    `  for (i = 0; i < ${l.nIn}; i++) {`,
+    `    const float *row = W${k} + i * ${l.nOut};`,
+    '    for (t = 0; t < nb; t++) {',
+    '      const double xi = (double)x[t][i];',
+    '      double *a = acc[t];',
+    `      for (o = 0; o < ${l.nOut}; o++) a[o] += xi * (double)row[o];`,
+    '    }',
+    '  }',
+    '  for (t = 0; t < nb; t++) {',
+    `    for (o = 0; o < ${l.nOut}; o++) {`,
+    '      const float s = (float)acc[t][o];',
+    `      y[t][o] = ${C_ACTIVATION[l.activation]};`,
+    '    }',
+    '  }',
+    '}',
+    '',
+  ]);
 }
 
 export function cExport(m: ExportModel, name = 'tilewise_policy'): CSources {
@@ -78,10 +114,10 @@ export function cExport(m: ExportModel, name = 'tilewise_policy'): CSources {
 
   const arrays: string[] = [];
   const f32 = (label: string, values: Float32Array): void => {
-    arrays.push(`static const float ${label}[${values.length}] = {`, ...literalLines(values, (v) => `${float32Text(v)}f`, 6, '  ').map((l) => `${l},`), '};', '');
+    arrays.push(`static const float ${label}[${values.length}] = {`, ...literalLines(values, (v) => `${float32Text(v)}f`, 100, '  ').lines.map((l) => `${l},`), '};', '');
   };
   const f64 = (label: string, values: Float64Array): void => {
-    arrays.push(`static const double ${label}[${values.length}] = {`, ...literalLines(values, float64Text, 4, '  ').map((l) => `${l},`), '};', '');
+    arrays.push(`static const double ${label}[${values.length}] = {`, ...literalLines(values, float64Text, 100, '  ').lines.map((l) => `${l},`), '};', '');
   };
   if (m.normalizer) {
     f64('norm_mean', m.normalizer.mean);
@@ -93,28 +129,35 @@ export function cExport(m: ExportModel, name = 'tilewise_policy'): CSources {
     f32(`b${i}`, l.bias);
   });
 
-  const actCode = { linear: 0, relu: 1, tanh: 2 } as const;
-  const body: string[] = [];
+  // Tiles are processed in blocks so that each weight row, once loaded, serves BLOCK tiles; the
+  // double accumulators of a block stay within 32 KiB of stack. The sums are formed in the same
+  // order as tile by tile, so the block size does not change any result.
+  const block = Math.max(1, Math.min(8, Math.floor(4096 / widest)));
   const nz = m.normalizer;
+  const body: string[] = [];
   body.push(
     '    /* observations -> float32 (as the environment produces them), normalised and clipped */',
-    `    for (j = 0; j < ${U}_OBS_DIM; j++) {`,
-    `      const float v = (float)x[j];`,
+    '    for (t = 0; t < nb; t++) {',
+    `      const double *x = obs + (r + t) * ${U}_OBS_DIM;`,
+    `      for (j = 0; j < ${U}_OBS_DIM; j++) {`,
+    '        const float v = (float)x[j];',
   );
   if (nz) {
+    const c = float64Text(nz.clip);
     body.push(
-      `      const double z = ((double)v - norm_mean[j]) * norm_inv_std[j];`,
-      `      h0[j] = (float)(z > ${float64Text(nz.clip)} ? ${float64Text(nz.clip)} : (z < -${float64Text(nz.clip)} ? -${float64Text(nz.clip)} : z));`,
+      '        const double z = ((double)v - norm_mean[j]) * norm_inv_std[j];',
+      `        h0[t][j] = (float)(z > ${c} ? ${c} : (z < -${c} ? -${c} : z));`,
     );
-  } else body.push('      h0[j] = v;');
-  body.push('    }');
-  m.layers.forEach((l, i) => {
-    const src = i % 2 === 0 ? 'h0' : 'h1';
-    const dst = i % 2 === 0 ? 'h1' : 'h0';
-    body.push(`    dense(${src}, ${dst}, W${i}, b${i}, ${l.nIn}, ${l.nOut}, ${actCode[l.activation]});`);
-  });
+  } else body.push('        h0[t][j] = v;');
+  body.push('      }', '    }');
+  m.layers.forEach((_, i) => body.push(`    layer${i}(${i % 2 === 0 ? 'h0' : 'h1'}, ${i % 2 === 0 ? 'h1' : 'h0'}, nb);`));
   const out = m.layers.length % 2 === 1 ? 'h1' : 'h0';
-  body.push(`    for (k = 0; k < ${U}_ACT_DIM; k++) y[k] = ${U}_ACTION_BOUND * (double)${out}[k];`);
+  body.push(
+    '    for (t = 0; t < nb; t++) {',
+    `      double *y = actions + (r + t) * ${U}_ACT_DIM;`,
+    `      for (k = 0; k < ${U}_ACT_DIM; k++) y[k] = ${U}_ACTION_BOUND * (double)${out}[t][k];`,
+    '    }',
+  );
 
   const source = [
     '/*',
@@ -125,35 +168,20 @@ export function cExport(m: ExportModel, name = 'tilewise_policy'): CSources {
     '#include <math.h>',
     '',
     `#define WIDEST ${widest}`,
+    `#define BLOCK ${block}`,
     '',
     `const char ${name}_metadata[] =`,
     ...cString(JSON.stringify(md), '  '),
     '  ;',
     '',
     ...arrays,
-    '/* y = act(float32(b + sum_i x[i] W[i][:])), summed in double in order of i. act: 0 linear, 1 relu, 2 tanh. */',
-    'static void dense(const float *x, float *y, const float *w, const float *b, int n_in, int n_out, int act) {',
-    '  double acc[WIDEST];',
-    '  int i, o;',
-    '  for (o = 0; o < n_out; o++) acc[o] = (double)b[o];',
-    '  for (i = 0; i < n_in; i++) {',
-    '    const double xi = (double)x[i];',
-    '    const float *row = w + (size_t)i * (size_t)n_out;',
-    '    for (o = 0; o < n_out; o++) acc[o] += xi * (double)row[o];',
-    '  }',
-    '  for (o = 0; o < n_out; o++) {',
-    '    const float s = (float)acc[o];',
-    '    y[o] = act == 1 ? (s > 0.0f ? s : 0.0f) : (act == 2 ? (float)tanh((double)s) : s);',
-    '  }',
-    '}',
-    '',
+    ...layerFunctions(m),
     `void ${name}_act(size_t count, const double *obs, double *actions) {`,
-    '  float h0[WIDEST], h1[WIDEST];',
+    '  float h0[BLOCK][WIDEST], h1[BLOCK][WIDEST];',
     '  size_t r;',
-    '  int j, k;',
-    '  for (r = 0; r < count; r++) {',
-    `    const double *x = obs + r * ${U}_OBS_DIM;`,
-    `    double *y = actions + r * ${U}_ACT_DIM;`,
+    '  int j, k, t;',
+    '  for (r = 0; r < count; r += BLOCK) {',
+    '    const int nb = count - r < BLOCK ? (int)(count - r) : BLOCK;',
     ...body,
     '  }',
     '}',

@@ -12,7 +12,7 @@
  * export: observations rounded to real32, layer sums in real64 over real32 weights, each layer's
  * output rounded to real32).
  *
- * The weights are initialised by DATA statements of six values each (not array-constructor
+ * The weights are initialised by DATA statements of a line each (not array-constructor
  * parameters: gfortran caps constructors at 65,535 elements and compiles large ones slowly), and
  * every line stays under the 132-character free-form limit. Named constants give the
  * dimensions, bound, tile grid and config hash; the full metadata JSON is in the comment at the top.
@@ -49,11 +49,11 @@ export function fortranExport(m: ExportModel, name = 'tilewise_policy'): string 
   const array = (label: string, kind: 'sp' | 'dp', values: ArrayLike<number>): void => {
     decl.push(`  real(${kind}), save :: ${label}(${values.length})`);
     const text = kind === 'sp' ? sp : dp;
-    const per = kind === 'sp' ? 6 : 4;
-    literalLines(values, text, per, '').forEach((line, k) => {
-      const first = k * per + 1;
-      const last = Math.min(values.length, first + per - 1);
-      data.push(`  data ${label}(${first}:${last}) / ${line} /`);
+    // DATA statements of as many values as fit in 90 characters (each line stays under 132).
+    const { lines, first } = literalLines(values, text, 90, '');
+    lines.forEach((line, k) => {
+      const last = k + 1 < first.length ? first[k + 1]! : values.length;
+      data.push(`  data ${label}(${first[k]! + 1}:${last}) / ${line} /`);
     });
   };
   if (m.normalizer) {
@@ -67,34 +67,47 @@ export function fortranExport(m: ExportModel, name = 'tilewise_policy'): string 
 
   const widths = [m.obsDim, ...m.layers.map((l) => l.nOut)];
   const widest = Math.max(...widths);
+  // Tiles in blocks sharing each weight row (as in the C export; same sums, same results).
+  const block = Math.max(1, Math.min(8, Math.floor(4096 / widest)));
   const body: string[] = [];
-  body.push('    do r = 1, n');
-  body.push(`      do j = 1, ${n('obs_dim')}`);
-  body.push('        v = real(obs(j, r), sp)');
+  body.push(`    do r0 = 1, n, ${block}`);
+  body.push(`      nb = min(${block}, n - r0 + 1)`);
+  body.push('      do k = 1, nb');
+  body.push(`        do j = 1, ${n('obs_dim')}`);
+  body.push('          v = real(obs(j, r0 + k - 1), sp)');
   if (m.normalizer) {
     const c = dp(m.normalizer.clip);
-    body.push('        z = (real(v, dp) - norm_mean(j)) * norm_inv_std(j)');
-    body.push(`        h0(j) = real(merge(${c}, merge(-${c}, z, z < -${c}), z > ${c}), sp)`);
-  } else body.push('        h0(j) = v');
+    body.push('          z = (real(v, dp) - norm_mean(j)) * norm_inv_std(j)');
+    body.push(`          h0(j, k) = real(merge(${c}, merge(-${c}, z, z < -${c}), z > ${c}), sp)`);
+  } else body.push('          h0(j, k) = v');
+  body.push('        end do');
   body.push('      end do');
   m.layers.forEach((l, i) => {
     const x = `h${i}`;
     const y = `h${i + 1}`;
     body.push(`      ! layer ${i}: ${l.nIn} -> ${l.nOut}, ${l.activation}`);
-    body.push(`      acc(1:${l.nOut}) = real(b${i}, dp)`);
+    body.push('      do k = 1, nb');
+    body.push(`        acc(1:${l.nOut}, k) = real(b${i}, dp)`);
+    body.push('      end do');
     body.push(`      do i = 1, ${l.nIn}`);
-    body.push(`        xi = real(${x}(i), dp)`);
-    body.push(`        do o = 1, ${l.nOut}`);
-    body.push(`          acc(o) = acc(o) + xi * real(w${i}((i - 1) * ${l.nOut} + o), dp)`);
+    body.push('        do k = 1, nb');
+    body.push(`          xi = real(${x}(i, k), dp)`);
+    body.push(`          do o = 1, ${l.nOut}`);
+    body.push(`            acc(o, k) = acc(o, k) + xi * real(w${i}((i - 1) * ${l.nOut} + o), dp)`);
+    body.push('          end do');
     body.push('        end do');
     body.push('      end do');
-    body.push(`      do o = 1, ${l.nOut}`);
-    body.push('        s = real(acc(o), sp)');
+    body.push('      do k = 1, nb');
+    body.push(`        do o = 1, ${l.nOut}`);
+    body.push('          s = real(acc(o, k), sp)');
     const act = l.activation === 'relu' ? 'max(s, 0.0_sp)' : l.activation === 'tanh' ? 'real(tanh(real(s, dp)), sp)' : 's';
-    body.push(`        ${y}(o) = ${act}`);
+    body.push(`          ${y}(o, k) = ${act}`);
+    body.push('        end do');
     body.push('      end do');
   });
-  body.push(`      actions(:, r) = ${n('action_bound')} * real(h${m.layers.length}, dp)`);
+  body.push('      do k = 1, nb');
+  body.push(`        actions(:, r0 + k - 1) = ${n('action_bound')} * real(h${m.layers.length}(:, k), dp)`);
+  body.push('      end do');
   body.push('    end do');
 
   return [
@@ -123,11 +136,11 @@ export function fortranExport(m: ExportModel, name = 'tilewise_policy'): string 
     '    integer, intent(in) :: n',
     `    real(dp), intent(in) :: obs(${n('obs_dim')}, n)`,
     `    real(dp), intent(out) :: actions(${n('act_dim')}, n)`,
-    ...widths.map((w, i) => `    real(sp) :: h${i}(${w})`),
-    `    real(dp) :: acc(${widest}), xi`,
+    ...widths.map((w, i) => `    real(sp) :: h${i}(${w}, ${block})`),
+    `    real(dp) :: acc(${widest}, ${block}), xi`,
     '    real(sp) :: v, s',
     ...(m.normalizer ? ['    real(dp) :: z'] : []),
-    '    integer :: r, j, i, o',
+    '    integer :: r0, nb, k, j, i, o',
     ...body,
     `  end subroutine ${n('act')}`,
     '',

@@ -219,6 +219,9 @@ export function modelSnapshot(m: ExportModel): PolicySnapshot {
   };
 }
 
+/** Smallest positive normal float32, 2^-126. */
+const FLOAT32_MIN_NORMAL = 2 ** -126;
+
 /**
  * Shortest decimal text that reads back as the same float32 (at most 9 significant digits,
  * which always suffice for binary32). Used by the JSON, C and Fortran writers.
@@ -226,11 +229,17 @@ export function modelSnapshot(m: ExportModel): PolicySnapshot {
 export function float32Text(v: number): string {
   if (!Number.isFinite(v)) throw new Error(`float32Text: ${v} is not finite`);
   const f = Math.fround(v);
+  // Subnormals with all 9 digits: a shorter decimal may lie below the smallest subnormal, which
+  // gfortran rejects as an underflow even though it rounds to the right value.
+  if (f !== 0 && Math.abs(f) < FLOAT32_MIN_NORMAL) return normalizeNumberText(f.toExponential(8));
   for (let p = 1; p <= 9; p++) {
-    const t = f.toPrecision(p);
-    if (Math.fround(Number(t)) === f) return normalizeNumberText(t);
+    // Same digits in fixed or exponent notation: keep the shorter (tiny weights as 1.5e-4).
+    const fixed = normalizeNumberText(f.toPrecision(p));
+    const exp = normalizeNumberText(f.toExponential(p - 1));
+    const t = exp.length < fixed.length ? exp : fixed;
+    if (Math.fround(Number(t)) === f) return t;
   }
-  return normalizeNumberText(f.toPrecision(9));
+  return normalizeNumberText(f.toExponential(8));
 }
 
 /** Decimal text that reads back as the same float64 (shortest round trip, as JS prints it). */
@@ -292,13 +301,23 @@ export function wrapText(text: string, width: number): string[] {
   return out;
 }
 
-/** Values as literal text, `perLine` to a line, each line prefixed with `indent`. */
-export function literalLines(values: ArrayLike<number>, text: (v: number) => string, perLine: number, indent: string): string[] {
+/**
+ * Values as literal text, as many to a line as fit in `width` characters (at least one), each
+ * line prefixed with `indent`; returns the lines and the index of each line's first value.
+ */
+export function literalLines(values: ArrayLike<number>, text: (v: number) => string, width: number, indent: string): { lines: string[]; first: number[] } {
   const lines: string[] = [];
-  for (let i = 0; i < values.length; i += perLine) {
-    const row: string[] = [];
-    for (let k = i; k < Math.min(values.length, i + perLine); k++) row.push(text(values[k]!));
-    lines.push(indent + row.join(', '));
+  const first: number[] = [];
+  let line = '';
+  for (let i = 0; i < values.length; i++) {
+    const t = text(values[i]!);
+    if (line && indent.length + line.length + 2 + t.length > width) {
+      lines.push(indent + line);
+      line = '';
+    }
+    if (!line) first.push(i);
+    line = line ? `${line}, ${t}` : t;
   }
-  return lines;
+  if (line) lines.push(indent + line);
+  return { lines, first };
 }
