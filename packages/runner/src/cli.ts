@@ -16,6 +16,7 @@ import { exportCommand, parseFormats } from './commands/export-policy';
 import { DEFAULT_SERVE_ADDRESS, serveCommand } from './commands/serve';
 import { createProgress, noProgress, type Progress } from './progress';
 import { resumeRun, train, type TrainSummary } from './trainer';
+import { REPORT_COMMAND } from './report/command';
 import { SWEEP_COMMANDS } from './sweep/commands';
 
 export const EXIT_OK = 0;
@@ -378,6 +379,7 @@ export const COMMANDS: CommandEntry[] = [
       return EXIT_OK;
     },
   },
+  REPORT_COMMAND,
   ...SWEEP_COMMANDS,
 ];
 

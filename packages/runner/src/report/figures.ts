@@ -246,7 +246,9 @@ function learningFigures(m: ReportModel): Figure[] {
       { logY: true },
     ),
   );
-  const train = m.domains.find((d) => d.label === 'train');
+  // Baseline levels only when every run trained on one surrogate (a single training domain).
+  const trains = m.domains.filter((d) => d.evalLabel === 'train');
+  const train = trains.length === 1 ? trains[0] : undefined;
   const rules: Array<{ label: string; y: number }> = [];
   if (train) {
     for (const c of train.controllers) {
@@ -254,7 +256,8 @@ function learningFigures(m: ReportModel): Figure[] {
       if ((c.role === 'none' || c.role === 'opposition') && typeof mean === 'number') rules.push({ label: `${c.id} (evaluation)`, y: mean });
     }
   }
-  const dragName = train?.dragName ?? m.runs.find((r) => r.summary)?.summary?.dragName ?? 'drag ratio';
+  const names = new Set(m.runs.flatMap((r) => (r.summary ? [r.summary.dragName] : [])));
+  const dragName = names.size === 1 ? [...names][0]! : (train?.dragName ?? 'drag ratio');
   const single = m.runs.filter((r) => r.log?.validations.length).length === 1;
   out.push(
     curveFigure(
@@ -293,7 +296,7 @@ function dragTimeFigure(d: DomainView, kind: BandKind): Figure | null {
     }
     columnBands(all, E, D, kind).forEach((b, k) => {
       if (b.n === 0) return;
-      rows.push({ kind: 'curve', controller: c.id, t: fix((k + 0.5) * ci), mean: fix(b.mean), lo: fix(b.lo), hi: fix(b.hi), episodes: b.n });
+      rows.push({ kind: 'curve', controller: c.id, t: fix((k + 1) * ci), mean: fix(b.mean), lo: fix(b.lo), hi: fix(b.hi), episodes: b.n });
     });
   }
   if (!rows.length) return null;
@@ -302,11 +305,11 @@ function dragTimeFigure(d: DomainView, kind: BandKind): Figure | null {
   const color = { field: 'controller', type: 'nominal', title: 'controller', scale: controllerColors(d.controllers) };
   const nCurves = new Set(rows.filter((r) => r.kind === 'curve').map((r) => r.controller)).size;
   return {
-    id: `drag-time-${d.label}`,
+    id: `drag-time-${d.slug}`,
     section: domainTitle(d),
     title: `${d.dragName} versus time`,
     caption:
-      `${d.dragName} (domain mean over each decision interval of ${ci} time units, 1 = the uncontrolled reference) for each controller on the same held-out initial states. ` +
+      `${d.dragName} (domain mean over each decision interval of ${ci} time units, plotted at the interval's end; 1 = the uncontrolled reference) for each controller on the same held-out initial states. ` +
       `Line: mean over the ${d.episodes} evaluation episodes${d.controllers.some((c) => c.entries.length > 1) ? ' (pooled over the seeds of a setting)' : ''}; band: ${bandWords(kind, 'episodes')}. ` +
       `Grey: the first ${d.discardDecisions} decisions after switching the controller on, left out of every statistic.`,
     spec: {
@@ -347,7 +350,7 @@ function sweepFigure(d: DomainView): Figure | null {
     });
   if (!rows.length) return null;
   return {
-    id: `sweep-${d.label}`,
+    id: `sweep-${d.slug}`,
     section: domainTitle(d),
     title: 'Tuning the opposition baseline',
     caption: `${d.dragName} of opposition control a = clip(-alpha s) for each gain alpha on the tuning seeds (separate from the evaluation seeds), mean with its Student-t 95% interval over the tuning episodes; the best gain (alpha = ${fix(op.bestAlpha, 4)}) is the baseline evaluated above.`,
@@ -425,7 +428,7 @@ function spaceTimeFigure(d: DomainView): Figure | null {
   }
   if (!rows.length) return null;
   return {
-    id: `spacetime-${d.label}`,
+    id: `spacetime-${d.slug}`,
     section: domainTitle(d),
     title: 'Space-time diagrams of u',
     caption:
@@ -484,7 +487,7 @@ function snapshotFigure(d: DomainView): Figure | null {
   }
   if (!rows.length) return null;
   return {
-    id: `snapshot-${d.label}`,
+    id: `snapshot-${d.slug}`,
     section: domainTitle(d),
     title: 'Vorticity snapshots',
     caption: `Vorticity of the first held-out episode at its last recorded decision (${at}) for each controller, from the same initial state; shared symmetric color scale. The forcing is sin(n y) along x.`,
@@ -541,7 +544,7 @@ function actuationFigure(d: DomainView): Figure | null {
   if (!rows.length) return null;
   const lines = new Set(rows.map((r) => `${r.controller}|${r.actuator}`)).size;
   return {
-    id: `actuation-${d.label}`,
+    id: `actuation-${d.slug}`,
     section: domainTitle(d),
     title: 'Actuation over time',
     caption: `Applied amplitudes of the first ${Math.min(ACTUATORS_SHOWN, d.tiles)} actuators over the first held-out episode (held over each decision interval); dashed: the bounds ±${bound}. No control acts 0 and is not shown.`,
@@ -596,7 +599,7 @@ function histogramFigures(d: DomainView, bins: number): Figure[] {
   const order = shares.filter((r) => r.kind === 'total').map((r) => r.controller as string);
   const out: Figure[] = [
     {
-      id: `histogram-${d.label}`,
+      id: `histogram-${d.slug}`,
       section: domainTitle(d),
       title: 'Amplitude histogram',
       caption:
@@ -625,7 +628,7 @@ function histogramFigures(d: DomainView, bins: number): Figure[] {
       primary: { name: 'bins_marks', items: hist.length },
     },
     {
-      id: `bounds-${d.label}`,
+      id: `bounds-${d.slug}`,
       section: domainTitle(d),
       title: 'Time at the bounds',
       caption: `Share of actuator-decisions (after the transient) whose amplitude is at the lower or upper bound (|a| >= ${bound}, the evaluation's rule); the tables give the interval over episodes.`,
@@ -699,7 +702,7 @@ function controlLawFigure(d: DomainView): Figure | null {
     });
   }
   return {
-    id: `control-law-${d.label}`,
+    id: `control-law-${d.slug}`,
     section: domainTitle(d),
     title: 'What each controller does with what it senses',
     caption:
@@ -775,7 +778,7 @@ function jointFigure(d: DomainView): JointResult {
   return {
     quadrants,
     figure: {
-      id: `joint-${d.label}`,
+      id: `joint-${d.slug}`,
       section: domainTitle(d),
       title: `Joint distribution of ${na} and ${nb}`,
       caption:

@@ -140,7 +140,7 @@ export function reportHtml(p: PageInput): string {
     const d = df.domain;
     const rows = p.rows.get(d.label) ?? [];
     const comps = p.comparisons.get(d.label) ?? [];
-    summary.push(`<h3>${escapeHtml(d.label === 'train' ? 'Training domain' : `Transfer domain ${d.label}`)}: ${escapeHtml(d.kind)}, ${d.tiles} tiles</h3>`);
+    summary.push(`<h3>${escapeHtml(d.evalLabel === 'train' ? `Training domain${d.label !== 'train' ? ` ${d.label}` : ''}` : `Transfer domain ${d.label}`)}: ${escapeHtml(d.kind)}, ${d.tiles} tiles</h3>`);
     summary.push(controllerTable(d.dragName, rows));
     const seeds = rows.some((r) => r.interval === 'seeds');
     summary.push(
@@ -150,7 +150,7 @@ export function reportHtml(p: PageInput): string {
         `Reference: ${escapeHtml(d.first.summary.reference.mean.toPrecision(5))} ± ${escapeHtml(d.first.summary.reference.ci95.toPrecision(2))} (95%).</p>`,
     );
     if (comps.length) {
-      summary.push(`<p class="tw-table-note">${d.label === 'train' ? 'Policy against the baselines' : 'Transfer result: the policy, trained on the training domain, against this domain\u2019s baselines'} (paired on identical initial states):</p>`);
+      summary.push(`<p class="tw-table-note">${d.evalLabel === 'train' ? 'Policy against the baselines' : 'Transfer result: the policy, trained on the training domain, against this domain\u2019s baselines'} (paired on identical initial states):</p>`);
       summary.push(comparisonTable(d.dragName, comps));
     }
   }
@@ -175,7 +175,7 @@ export function reportHtml(p: PageInput): string {
 
   // --- domains ---
   for (const df of p.figures.domains) {
-    const id = `domain-${df.domain.label}`;
+    const id = `domain-${df.domain.slug}`;
     const title = df.figures[0]?.section ?? df.domain.label;
     toc.push(`<li><a href="#${escapeHtml(id)}">${escapeHtml(title)}</a></li>`);
     const parts = df.figures.map((f) => {

@@ -29,7 +29,12 @@ export interface ControllerView {
 }
 
 export interface DomainView {
+  /** The evaluation's domain label (train, transfer-1, ...), with the surrogate appended when a report mixes surrogates under one label. */
   readonly label: string;
+  /** Directory- and id-safe form of the label. */
+  readonly slug: string;
+  /** The evaluation's own label: train, transfer-<i> or transfer. */
+  readonly evalLabel: string;
   readonly kind: string;
   readonly dragName: string;
   readonly tiles: number;
@@ -73,14 +78,18 @@ export function groupSettings(runs: readonly RunData[]): Setting[] {
 
 export function buildModel(runs: readonly RunData[], bandKind: BandKind, sweep: SweepAggregate | null = null): ReportModel {
   const settings = groupSettings(runs);
-  const labels: string[] = [];
-  for (const r of runs) for (const d of r.domains) if (!labels.includes(d.label)) labels.push(d.label);
-  labels.sort((a, b) => (a === 'train' ? -1 : b === 'train' ? 1 : 0));
-  const domains = labels.map((label) => buildDomain(label, settings));
+  // Domains are matched by label and surrogate (a report may hold runs on different surrogates).
+  const keys: Array<{ label: string; kind: string }> = [];
+  for (const r of runs) for (const d of r.domains) if (!keys.some((k) => k.label === d.label && k.kind === d.summary.kind)) keys.push({ label: d.label, kind: d.summary.kind });
+  keys.sort((a, b) => (a.label === 'train' ? 0 : 1) - (b.label === 'train' ? 0 : 1));
+  const domains = keys.map(({ label, kind }) => {
+    const shared = keys.filter((k) => k.label === label).length > 1;
+    return buildDomain(label, kind, shared ? `${label} (${kind})` : label, settings);
+  });
   return { runs, settings, domains, sweep, band: bandKind };
 }
 
-function buildDomain(label: string, settings: readonly Setting[]): DomainView {
+function buildDomain(evalLabel: string, kind: string, label: string, settings: readonly Setting[]): DomainView {
   const controllers: ControllerView[] = [];
   const baselines = new Map<string, ControllerView & { entries: ControllerView['entries'][number][] }>();
   const envs = new Set<string>();
@@ -90,7 +99,7 @@ function buildDomain(label: string, settings: readonly Setting[]): DomainView {
     const policyEntries: Array<ControllerView['entries'][number]> = [];
     let policyName = '';
     for (const run of s.runs) {
-      const d = run.domains.find((x) => x.label === label);
+      const d = run.domains.find((x) => x.label === evalLabel && x.summary.kind === kind);
       if (!d) continue;
       first ??= d;
       const envKey = canonicalJson(d.summary.env);
@@ -123,6 +132,8 @@ function buildDomain(label: string, settings: readonly Setting[]): DomainView {
   const series = f.series;
   return {
     label,
+    slug: label.replace(/[^A-Za-z0-9._-]+/g, '-').replace(/-+$/, ''),
+    evalLabel,
     kind: f.summary.kind,
     dragName: f.summary.dragName,
     tiles: f.summary.tiles,
