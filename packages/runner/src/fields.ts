@@ -49,12 +49,17 @@ export function fieldRows(schema: z.ZodType, root: string): string[][] {
 /** A Markdown table cell: pipes escaped. */
 const cell = (s: string): string => s.replaceAll('|', '\\|');
 
+/** One section's reference as a Markdown table under a heading. */
+export function sectionReference(title: string, schema: z.ZodType, root: string): string {
+  const rows = fieldRows(schema, root);
+  const lines = ['| field | type | meaning (default) |', '|---|---|---|', ...rows.map((r) => `| \`${r[0]}\` | ${cell(r[1]!)} | ${cell(r[2]!)} |`)];
+  return `### ${title}\n\n${lines.join('\n')}`;
+}
+
 /** The whole reference as Markdown: one table per section (env: one per registered surrogate). */
 export function fieldReference(): string {
-  const table = (rows: string[][]): string =>
-    ['| field | type | meaning (default) |', '|---|---|---|', ...rows.map((r) => `| \`${r[0]}\` | ${cell(r[1]!)} | ${cell(r[2]!)} |`)].join('\n');
   const parts: string[] = [];
-  for (const k of envKinds()) parts.push(`### env (kind: ${k})\n\n${table(fieldRows(envKind(k).schema, 'env'))}`);
-  for (const [name, schema] of Object.entries(SECTIONS)) parts.push(`### ${name}\n\n${table(fieldRows(schema as z.ZodType, name))}`);
+  for (const k of envKinds()) parts.push(sectionReference(`env (kind: ${k})`, envKind(k).schema, 'env'));
+  for (const [name, schema] of Object.entries(SECTIONS)) parts.push(sectionReference(name, schema as z.ZodType, name));
   return parts.join('\n\n');
 }
