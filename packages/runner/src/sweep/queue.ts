@@ -241,11 +241,11 @@ export async function watchSweep(
 /** Lines describing the queue (and the sweep's runs on it, when given). */
 export async function statusLines(queue: Queue, sweep: Sweep | null, outDir: string | null): Promise<string[]> {
   const c = await queue.getJobCounts('waiting', 'active', 'delayed', 'prioritized', 'completed', 'failed');
-  const workers = await queue.getWorkers();
-  const names = workers.map((w) => w.name || w.addr || '?');
+  // One entry per Redis connection; a named worker's connections are called "<queue key>:w:<name>".
+  const names = [...new Set((await queue.getWorkers()).map((w) => (w.rawname ?? '').split(':w:')[1] || w.addr || '?'))];
   const lines = [
     `queue ${queue.name}: ${(c.waiting ?? 0) + (c.prioritized ?? 0)} waiting, ${c.active ?? 0} running, ${c.delayed ?? 0} delayed (retry backoff), ${c.completed ?? 0} completed, ${c.failed ?? 0} failed`,
-    `workers connected: ${workers.length}${names.length ? ` (${[...new Set(names)].join(', ')})` : ''}`,
+    `workers connected: ${names.length}${names.length ? ` (${names.join(', ')})` : ''}`,
   ];
   if (sweep && outDir) {
     const s = await snapshot(queue, sweep, outDir, { store: false, before: new Set() });

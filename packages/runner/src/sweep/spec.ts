@@ -100,7 +100,7 @@ export const sweepSchema = z
   .strictObject({
     name: z.string().regex(NAME_RE, 'expected letters, digits, ".", "_" or "-"').optional().describe("The sweep's name: its output directory and queue job ids (default: the file's base name)."),
     base: z
-      .union([z.string().min(1), z.record(z.string(), z.unknown())])
+      .union([z.string().min(1), z.record(z.string(), z.unknown())], { error: 'expected a config file name or an inline config mapping' })
       .describe('The base run config: a config file (relative to the sweep file) or an inline config mapping.'),
     common: dotted.default({}).describe('Dotted config keys applied to every run (default none).'),
     vary: z.array(varyEntrySchema).default([]).describe('The settings (default none: the base config alone).'),
@@ -111,7 +111,7 @@ export const sweepSchema = z
           first: z.number().int().nonnegative().default(1).describe('First seed (default 1).'),
           count: z.number().int().positive().max(10000).describe('Seeds first, first + 1, ...'),
         }),
-      ])
+      ], { error: 'expected a list of seeds or { first, count }' })
       .default([1, 2, 3])
       .describe('Run seeds (train.seed) of every setting: a list, or { first, count } (default [1, 2, 3]).'),
     evaluate: z

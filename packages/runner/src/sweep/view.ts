@@ -35,7 +35,8 @@ export function sweepEta(c: SweepCounts, running: readonly RunningRun[], elapsed
   if (c.total === 0) return { fraction: 1, eta: 0 };
   const partial = running.reduce((s, r) => s + (r.progress?.fraction ?? 0), 0);
   const finished = c.done + c.failed;
-  return estimate({ done: finished + partial, total: c.total, elapsed, budget: null, metrics: {} });
+  const e = estimate({ done: finished + partial, total: c.total, elapsed, budget: null, metrics: {} });
+  return elapsed > 0 ? e : { fraction: e.fraction, eta: null }; // no rate measured yet
 }
 
 /** "3/8 done, 2 running, 0 failed, 3 waiting, ETA 4m10s". */
