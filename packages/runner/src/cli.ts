@@ -105,6 +105,11 @@ function backendChoice(opts: Record<string, unknown>): BackendChoice {
   return b as BackendChoice;
 }
 
+/** Progress notes of long evaluations on stderr (none with --quiet). */
+function notes(io: Io, quiet: boolean): (line: string) => void {
+  return quiet ? () => {} : (l) => io.err(l);
+}
+
 function eventLogger(io: Io, quiet: boolean): (e: EnvEvent) => void {
   return (e) => {
     if (!quiet || e.kind === 'diverged') io.err(`[${e.kind}] ${e.message}`);
@@ -138,7 +143,7 @@ async function trainingSession(
   if (summary.status === 'interrupted') return controller.signal.reason === 'SIGTERM' ? EXIT_SIGTERM : EXIT_SIGINT;
   if (finalEvaluation && opts.evaluate !== false) {
     const src = openPolicySource(summary.runDir, 'best');
-    evaluateSource(src, null, { cacheDir: opts.cacheDir as string | undefined, log: (l) => io.out(l), onEvent: eventLogger(io, quiet) });
+    evaluateSource(src, null, { cacheDir: opts.cacheDir as string | undefined, log: (l) => io.out(l), note: notes(io, quiet), onEvent: eventLogger(io, quiet) });
   }
   if (opts.json) io.out(JSON.stringify(summary));
   return EXIT_OK;
@@ -233,6 +238,7 @@ export const COMMANDS: CommandEntry[] = [
         out: opts.out as string | undefined,
         noTransfer: opts.transfer === false,
         log: (l) => io.out(l),
+        note: notes(io, Boolean(opts.quiet)),
         onEvent: eventLogger(io, Boolean(opts.quiet)),
       });
       return EXIT_OK;
@@ -260,6 +266,7 @@ export const COMMANDS: CommandEntry[] = [
         cacheDir: opts.cacheDir as string | undefined,
         out: (opts.out as string | undefined) ?? null,
         log: (l) => io.out(l),
+        note: notes(io, Boolean(opts.quiet)),
         onEvent: eventLogger(io, Boolean(opts.quiet)),
       });
       return EXIT_OK;

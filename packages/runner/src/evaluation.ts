@@ -84,6 +84,8 @@ export interface CompareOptions {
   /** Keep time series (RecordingEnv) for every controller. */
   readonly record?: boolean;
   readonly log: (line: string) => void;
+  /** Progress notes of long work (stderr in the CLI). */
+  readonly note?: (line: string) => void;
   readonly onEvent?: (e: EnvEvent) => void;
 }
 
@@ -100,8 +102,10 @@ export function compareControllers(d: DomainSpec, o: CompareOptions): DomainResu
 
   const tuningSeeds = episodeSeeds(ev.seed, 'baseline-tuning', bl.gainSweep.episodes);
   let sweep: GainSweepResult | null = null;
+  const note = o.note ?? (() => {});
   if (bl.policies.includes('opposition')) {
     const g = bl.gainSweep;
+    note(`${d.label}: opposition gain sweep, ${g.count} gains x ${g.episodes} tuning episodes...`);
     sweep = sweepOppositionGain(env, { ...evalOpts, seeds: tuningSeeds, gains: gainGrid(g.min, g.max, g.count, g.scale), criterion: g.criterion });
     o.log('');
     o.log(`opposition gain sweep (${g.episodes} tuning episodes per gain, best by ${g.criterion === 'drag' ? dragName : 'net saving'}):`);
@@ -137,6 +141,7 @@ export function compareControllers(d: DomainSpec, o: CompareOptions): DomainResu
           histogramBins: ev.record.histogramBins,
         })
       : null;
+    note(`${d.label}: ${policy.name}, ${episodes} evaluation episodes...`);
     const results = evaluatePolicy(rec ?? env, policy, { ...evalOpts, seeds });
     return { name: policy.name, role, summary: summarizeEpisodes(policy.name, results), episodes: results, recording: rec?.recording() ?? null };
   });
@@ -218,6 +223,7 @@ export interface EvaluateOnDomainsOptions {
   readonly cacheDir?: string;
   readonly episodes?: number;
   readonly log: (line: string) => void;
+  readonly note?: (line: string) => void;
   readonly onEvent?: (e: EnvEvent) => void;
 }
 
@@ -235,6 +241,7 @@ export function evaluatePolicyOnDomains(o: EvaluateOnDomainsOptions): DomainResu
       policy: { net: new PolicyNet(o.policy.snapshot), name: o.policyName },
       record: o.outDir !== null,
       log: o.log,
+      note: o.note,
       onEvent: o.onEvent,
     });
     if (o.outDir) writeDomainResult(join(o.outDir, d.label), r, o.policy);

@@ -53,6 +53,8 @@ export interface EvaluateCommandOptions {
   /** Skip evaluation.transfer domains. */
   readonly noTransfer?: boolean;
   readonly log: (line: string) => void;
+  /** Progress notes of long work. */
+  readonly note?: (line: string) => void;
   readonly onEvent?: (e: EnvEvent) => void;
 }
 
@@ -91,6 +93,7 @@ function run(src: PolicySource, domains: DomainSpec[], o: EvaluateCommandOptions
     cacheDir: o.cacheDir,
     episodes: o.episodes,
     log: o.log,
+    note: o.note,
     onEvent: o.onEvent,
   });
   if (outDir) o.log(`\nevaluation data: ${outDir}/<domain>/evaluation.json, series.twdata (docs/formats.md)`);
