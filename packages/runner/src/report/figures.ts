@@ -65,6 +65,8 @@ function controllerColors(cs: readonly ControllerView[]): { domain: string[]; ra
 const fix = (x: number, d = 6): number | null => (Number.isFinite(x) ? Number(x.toPrecision(d)) : null);
 const pct = (x: number): string => `${(100 * x).toFixed(1)}%`;
 const SIZE = { width: 560, height: 240 };
+/** Legend entries of line charts drawn as strokes. */
+const LINE_LEGEND = { symbolType: 'stroke', symbolStrokeWidth: 2.5, symbolOpacity: 1 };
 const PANEL = { width: 200, height: 200 };
 
 function domainTitle(d: DomainView): string {
@@ -176,15 +178,8 @@ function curveFigure(
   for (const r of opts.rules ?? []) rows.push({ kind: 'rule', label: r.label, y: fix(r.y) });
   const color = { field: 'setting', type: 'nominal', title: 'setting', scale: settingColors(settings) };
   const yScale = opts.logY ? { type: 'log' } : { zero: false };
-  const layer: VlSpec[] = [];
-  if (rows.some((r) => r.kind === 'curve' && r.lo !== null)) {
-    layer.push({
-      transform: [{ filter: "datum.kind === 'curve' && datum.lo !== null" }],
-      mark: { type: 'area', opacity: 0.22 },
-      encoding: { x: { field: 'step', type: 'quantitative' }, y: { field: 'lo', type: 'quantitative', scale: yScale }, y2: { field: 'hi' }, color: { ...color, legend: null } },
-    });
-  }
-  layer.push(
+  // The line layer comes first: a shared legend takes its symbols from the first layer.
+  const layer: VlSpec[] = [
     {
       name: 'curve',
       transform: [{ filter: "datum.kind === 'curve'" }],
@@ -192,7 +187,7 @@ function curveFigure(
       encoding: {
         x: { field: 'step', type: 'quantitative', title: 'environment steps' },
         y: { field: 'mean', type: 'quantitative', title: yTitle, scale: yScale },
-        color,
+        color: { ...color, legend: LINE_LEGEND },
         tooltip: [
           { field: 'setting', type: 'nominal' },
           { field: 'step', type: 'quantitative' },
@@ -201,7 +196,14 @@ function curveFigure(
         ],
       },
     },
-  );
+  ];
+  if (rows.some((r) => r.kind === 'curve' && r.lo !== null)) {
+    layer.push({
+      transform: [{ filter: "datum.kind === 'curve' && datum.lo !== null" }],
+      mark: { type: 'area', fillOpacity: 0.2 },
+      encoding: { x: { field: 'step', type: 'quantitative' }, y: { field: 'lo', type: 'quantitative', scale: yScale }, y2: { field: 'hi' }, color },
+    });
+  }
   if (opts.rules?.length) {
     layer.push(
       { transform: [{ filter: "datum.kind === 'rule'" }], mark: { type: 'rule', strokeDash: [5, 4], color: '#555' }, encoding: { y: { field: 'y', type: 'quantitative' } } },
@@ -310,7 +312,7 @@ function dragTimeFigure(d: DomainView, kind: BandKind): Figure | null {
     title: `${d.dragName} versus time`,
     caption:
       `${d.dragName} (domain mean over each decision interval of ${ci} time units, plotted at the interval's end; 1 = the uncontrolled reference) for each controller on the same held-out initial states. ` +
-      `Line: mean over the ${d.episodes} evaluation episodes${d.controllers.some((c) => c.entries.length > 1) ? ' (pooled over the seeds of a setting)' : ''}; band: ${bandWords(kind, 'episodes')}. ` +
+      `Line: mean over the ${d.episodes} evaluation episodes${d.controllers.some((c) => c.entries.length > 1) ? ' of each run, pooled over the runs (seeds) of a setting' : ''}; band: ${bandWords(kind, 'episodes')}. ` +
       `Grey: the first ${d.discardDecisions} decisions after switching the controller on, left out of every statistic.`,
     spec: {
       ...SIZE,
@@ -318,11 +320,6 @@ function dragTimeFigure(d: DomainView, kind: BandKind): Figure | null {
       layer: [
         { transform: [{ filter: "datum.kind === 'transient'" }], mark: { type: 'rect', color: '#000', opacity: 0.07 }, encoding: { x: { field: 't0', type: 'quantitative' }, x2: { field: 't1' } } },
         { mark: { type: 'rule', strokeDash: [2, 3], color: '#888' }, encoding: { y: { datum: 1 } } },
-        ...(rows.some((r) => r.kind === 'curve' && r.lo !== null) ? [{
-          transform: [{ filter: "datum.kind === 'curve' && isValid(datum.lo)" }],
-          mark: { type: 'area', opacity: 0.18 },
-          encoding: { x: { field: 't', type: 'quantitative' }, y: { field: 'lo', type: 'quantitative' }, y2: { field: 'hi' }, color: { ...color, legend: null } },
-        }] : []),
         {
           name: 'dragcurve',
           transform: [{ filter: "datum.kind === 'curve'" }],
@@ -330,9 +327,14 @@ function dragTimeFigure(d: DomainView, kind: BandKind): Figure | null {
           encoding: {
             x: { field: 't', type: 'quantitative', title: 'time since the controller was switched on', scale: { domain: [0, d.decisions * ci], nice: false } },
             y: { field: 'mean', type: 'quantitative', title: d.dragName },
-            color,
+            color: { ...color, legend: LINE_LEGEND },
           },
         },
+        ...(rows.some((r) => r.kind === 'curve' && r.lo !== null) ? [{
+          transform: [{ filter: "datum.kind === 'curve' && isValid(datum.lo)" }],
+          mark: { type: 'area', fillOpacity: 0.18 },
+          encoding: { x: { field: 't', type: 'quantitative' }, y: { field: 'lo', type: 'quantitative' }, y2: { field: 'hi' }, color },
+        }] : []),
       ],
     },
     primary: { name: 'dragcurve_marks', items: nCurves },

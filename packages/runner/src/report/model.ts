@@ -327,8 +327,9 @@ export function fieldGrid(d: { kind: string; env: Record<string, unknown> }): { 
   if (d.kind === 'ks' && typeof e.points === 'number' && typeof e.length === 'number') return { nx: e.points, ny: 1, lx: e.length, ly: 0 };
   if (d.kind === 'kolmogorov' && Array.isArray(e.points) && e.points.length === 2) {
     const [nx, ny] = e.points as number[];
-    // Kolmogorov flow on [0, 2 pi)^2 (docs/kolmogorov.md).
-    return { nx: nx!, ny: ny!, lx: 2 * Math.PI, ly: 2 * Math.PI };
+    // Kolmogorov flow on [0, 2 pi a) x [0, 2 pi), a = aspect (docs/kolmogorov.md).
+    const aspect = typeof e.aspect === 'number' ? e.aspect : 1;
+    return { nx: nx!, ny: ny!, lx: 2 * Math.PI * aspect, ly: 2 * Math.PI };
   }
   return null;
 }
