@@ -160,6 +160,18 @@ function withOverrides(cfg: RunConfig, opts: Record<string, unknown>): RunConfig
   return { ...cfg, train: { ...t, seed: (opts.seed as number | undefined) ?? t.seed, stop } };
 }
 
+/** The options evaluate and transfer share, from their flags. */
+function evaluationOptions(opts: Record<string, unknown>, io: Io) {
+  const quiet = Boolean(opts.quiet);
+  return {
+    episodes: opts.episodes as number | undefined,
+    cacheDir: opts.cacheDir as string | undefined,
+    log: (l: string) => io.out(l),
+    note: notes(io, quiet),
+    onEvent: eventLogger(io, quiet),
+  };
+}
+
 export const COMMANDS: CommandEntry[] = [
   {
     name: 'train',
@@ -228,19 +240,9 @@ export const COMMANDS: CommandEntry[] = [
         .option('-q, --quiet', 'only results and errors');
     },
     run(args, opts, io) {
-      const which = opts.policy as string;
-      if (which !== 'best' && which !== 'latest') throw new ConfigError([`--policy: expected best or latest (got ${JSON.stringify(which)})`]);
-      const src = openPolicySource(args[0]!, which);
+      const src = openPolicySource(args[0]!, policyChoice(opts));
       const cfg = opts.config ? loadRunConfig(opts.config as string) : null;
-      evaluateSource(src, cfg, {
-        episodes: opts.episodes as number | undefined,
-        cacheDir: opts.cacheDir as string | undefined,
-        out: opts.out as string | undefined,
-        noTransfer: opts.transfer === false,
-        log: (l) => io.out(l),
-        note: notes(io, Boolean(opts.quiet)),
-        onEvent: eventLogger(io, Boolean(opts.quiet)),
-      });
+      evaluateSource(src, cfg, { ...evaluationOptions(opts, io), out: opts.out as string | undefined, noTransfer: opts.transfer === false });
       return EXIT_OK;
     },
   },
@@ -258,17 +260,8 @@ export const COMMANDS: CommandEntry[] = [
         .option('-q, --quiet', 'only results and errors');
     },
     run(args, opts, io) {
-      const which = opts.policy as string;
-      if (which !== 'best' && which !== 'latest') throw new ConfigError([`--policy: expected best or latest (got ${JSON.stringify(which)})`]);
-      const src = openPolicySource(args[0]!, which);
-      transferSource(src, args[1]!, {
-        episodes: opts.episodes as number | undefined,
-        cacheDir: opts.cacheDir as string | undefined,
-        out: (opts.out as string | undefined) ?? null,
-        log: (l) => io.out(l),
-        note: notes(io, Boolean(opts.quiet)),
-        onEvent: eventLogger(io, Boolean(opts.quiet)),
-      });
+      const src = openPolicySource(args[0]!, policyChoice(opts));
+      transferSource(src, args[1]!, { ...evaluationOptions(opts, io), out: (opts.out as string | undefined) ?? null });
       return EXIT_OK;
     },
   },

@@ -8,14 +8,10 @@ import { tmpdir } from 'node:os';
 import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { describe, expect, it } from 'vitest';
-import { EXIT_CONFIG, EXIT_OK, EXIT_SIGINT, main, type Io } from '../src/cli';
+import { EXIT_CONFIG, EXIT_OK, EXIT_SIGINT, main } from '../src/cli';
+import { capture } from './helpers/io';
 import { listCheckpoints } from '../src/checkpoint';
 
-function capture(): Io & { outText: () => string; errText: () => string } {
-  const out: string[] = [];
-  const err: string[] = [];
-  return { out: (l) => out.push(l), err: (l) => err.push(l), outText: () => out.join('\n'), errText: () => err.join('\n') };
-}
 
 const dir = mkdtempSync(join(tmpdir(), 'tilewise-cli-train-'));
 const cache = join(dir, 'cache');

@@ -2,14 +2,10 @@ import { mkdtempSync, readdirSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
-import { EXIT_CONFIG, EXIT_OK, main, type Io } from '../src/cli';
+import { EXIT_CONFIG, EXIT_OK, main } from '../src/cli';
+import { capture } from './helpers/io';
 import { parseRunConfig } from '../src/config';
 
-function capture(): Io & { outText: () => string; errText: () => string } {
-  const out: string[] = [];
-  const err: string[] = [];
-  return { out: (l) => out.push(l), err: (l) => err.push(l), outText: () => out.join('\n'), errText: () => err.join('\n') };
-}
 
 const dir = mkdtempSync(join(tmpdir(), 'tilewise-cli-'));
 function writeConfig(name: string, text: string): string {
