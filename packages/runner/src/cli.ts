@@ -160,6 +160,16 @@ function withOverrides(cfg: RunConfig, opts: Record<string, unknown>): RunConfig
   return { ...cfg, train: { ...t, seed: (opts.seed as number | undefined) ?? t.seed, stop } };
 }
 
+/** Options of train and resume after their own. */
+function sessionOptions(cmd: Command): void {
+  cmd
+    .option('--no-evaluate', 'skip the final evaluation (overrides train.finalEvaluation)')
+    .option('--no-progress', 'no progress bar or progress lines')
+    .option('--cache-dir <dir>', 'where reference values (P0) are cached (default: $TILEWISE_CACHE or ~/.cache/tilewise)')
+    .addOption(new Option('--json', 'also print the run summary as one JSON object on the last line'))
+    .option('-q, --quiet', 'only results and errors');
+}
+
 /** The options evaluate and transfer share, from their flags. */
 function evaluationOptions(opts: Record<string, unknown>, io: Io) {
   const quiet = Boolean(opts.quiet);
@@ -183,12 +193,8 @@ export const COMMANDS: CommandEntry[] = [
         .option('--run-dir <dir>', 'use exactly this (new or empty) run directory')
         .option('--seed <n>', 'run seed (overrides train.seed)', nonNegativeInt('seed'))
         .option('--steps <n>', 'stop after this many environment steps (overrides train.stop.steps)', positiveInt('steps'))
-        .option('--seconds <s>', 'training time budget in seconds (overrides train.stop.seconds)', positiveNumber('seconds'))
-        .option('--no-evaluate', 'skip the final evaluation (overrides train.finalEvaluation)')
-        .option('--no-progress', 'no progress bar or progress lines')
-        .option('--cache-dir <dir>', 'where reference values (P0) are cached (default: $TILEWISE_CACHE or ~/.cache/tilewise)')
-        .addOption(new Option('--json', 'also print the run summary as one JSON object on the last line'))
-        .option('-q, --quiet', 'only results and errors');
+        .option('--seconds <s>', 'training time budget in seconds (overrides train.stop.seconds)', positiveNumber('seconds'));
+      sessionOptions(cmd);
     },
     async run(args, opts, io) {
       const cfg = withOverrides(loadRunConfig(args[0]!), opts);
@@ -207,12 +213,8 @@ export const COMMANDS: CommandEntry[] = [
       cmd
         .argument('<run-dir>', 'a run directory made by tilewise train')
         .option('--steps <n>', 'new total step limit (replaces train.stop.steps)', positiveInt('steps'))
-        .option('--seconds <s>', 'new total time budget in seconds (replaces train.stop.seconds)', positiveNumber('seconds'))
-        .option('--no-evaluate', 'skip the final evaluation')
-        .option('--no-progress', 'no progress bar or progress lines')
-        .option('--cache-dir <dir>', 'where reference values (P0) are cached')
-        .addOption(new Option('--json', 'also print the run summary as one JSON object on the last line'))
-        .option('-q, --quiet', 'only results and errors');
+        .option('--seconds <s>', 'new total time budget in seconds (replaces train.stop.seconds)', positiveNumber('seconds'));
+      sessionOptions(cmd);
     },
     async run(args, opts, io) {
       const runDir = args[0]!;

@@ -3,23 +3,16 @@
  * evaluate, transfer, config, exit codes, and a real SIGINT to a child process.
  */
 import { spawn } from 'node:child_process';
-import { existsSync, mkdtempSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
-import { tmpdir } from 'node:os';
+import { existsSync, readdirSync, readFileSync } from 'node:fs';
 import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { describe, expect, it } from 'vitest';
 import { EXIT_CONFIG, EXIT_OK, EXIT_SIGINT, main } from '../src/cli';
-import { capture } from './helpers/io';
+import { capture, tempFiles } from './helpers/io';
 import { listCheckpoints } from '../src/checkpoint';
 
-
-const dir = mkdtempSync(join(tmpdir(), 'tilewise-cli-train-'));
+const { dir, write } = tempFiles('tilewise-cli-train-');
 const cache = join(dir, 'cache');
-const write = (name: string, text: string): string => {
-  const p = join(dir, name);
-  writeFileSync(p, text);
-  return p;
-};
 
 const TINY = `
 env:

@@ -1,18 +1,11 @@
-import { mkdtempSync, readdirSync, writeFileSync } from 'node:fs';
-import { tmpdir } from 'node:os';
+import { readdirSync } from 'node:fs';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
 import { EXIT_CONFIG, EXIT_OK, main } from '../src/cli';
-import { capture } from './helpers/io';
+import { capture, tempFiles } from './helpers/io';
 import { parseRunConfig } from '../src/config';
 
-
-const dir = mkdtempSync(join(tmpdir(), 'tilewise-cli-'));
-function writeConfig(name: string, text: string): string {
-  const p = join(dir, name);
-  writeFileSync(p, text);
-  return p;
-}
+const { dir, write: writeConfig } = tempFiles('tilewise-cli-');
 
 /** A small but complete run: short spin-up, few short episodes, a 2-point gain sweep. */
 const SMALL = `
