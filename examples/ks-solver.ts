@@ -8,11 +8,13 @@
  *   npx tsx examples/ks-solver.ts ADDRESS [--config '{"kind":"ks",...}'] [--p0 P0]
  *
  * ADDRESS is where the run listens (its env.listen: PORT, HOST:PORT or unix:PATH). --config is
- * the KS env section as JSON (default: configs/ks-l22-t4.yaml's physics); --p0 fixes the
+ * the KS env section as JSON (default: the env section of configs/ks-l22-t4.yaml); --p0 fixes the
  * normalising reference (default: measured once and cached, as tilewise does).
  * A solver in C or Fortran implements the same frames; this file is the reference.
  */
+import { join } from 'node:path';
 import { createEnv, ksEnvKind, parseKsConfig } from '../packages/envs/src/index';
+import { loadRunConfig } from '../packages/runner/src/config';
 import { runSolver } from '../packages/runner/src/external/solver';
 import { parseAddress } from '../packages/runner/src/wire/address';
 
@@ -21,27 +23,16 @@ function option(name: string): string | undefined {
   return i > 0 ? process.argv[i + 1] : undefined;
 }
 
-const DEFAULT_KS = {
-  kind: 'ks',
-  length: 22,
-  points: 64,
-  dt: 0.05,
-  tiles: 4,
-  actuators: 4,
-  actuatorWidth: 1,
-  actionBound: 0.5,
-  controlSteps: 5,
-  sensorsPerTile: 8,
-  haloTiles: 1,
-  episodeLength: 400,
-};
+/** The default physics: the env section of configs/ks-l22-t4.yaml. */
+const DEFAULT_CONFIG = join(import.meta.dirname, '..', 'configs', 'ks-l22-t4.yaml');
 
 const address = process.argv[2];
 if (!address || address.startsWith('--')) {
   process.stderr.write('usage: npx tsx examples/ks-solver.ts ADDRESS [--config JSON] [--p0 P0]\n');
   process.exit(2);
 }
-const config = parseKsConfig(JSON.parse(option('--config') ?? JSON.stringify(DEFAULT_KS)));
+const configText = option('--config');
+const config = parseKsConfig(configText ? JSON.parse(configText) : loadRunConfig(DEFAULT_CONFIG).env.config);
 const p0Text = option('--p0');
 const p0 = p0Text !== undefined ? Number(p0Text) : ksEnvKind.reference(config, {}).mean;
 

@@ -24,7 +24,7 @@ import { MessageChannel, receiveMessageOnPort, Worker, type MessagePort } from '
 import { z } from 'zod';
 import { envKinds, parseConfig, registerEnvKind, type EnvKind, type EnvSpec, type ReferenceValue, type StepOut, type TiledEnv } from '@tilewise/envs';
 import { formatAddress, parseAddress, type Address } from '../wire/address';
-import { MSG, readArray, transitionLayout } from '../wire/protocol';
+import { MSG, readArray, readTransition, transitionLayout } from '../wire/protocol';
 import type { LinkInit, LinkReply, LinkRequest } from './link-worker';
 
 const layoutEntry = z.strictObject({
@@ -221,15 +221,8 @@ export class ExternalEnv implements TiledEnv {
     }
     const r = this.call(MSG.STEP, MSG.TRANSITION, new Uint8Array(p.buffer));
     const L = transitionLayout({ copies: this.B, tiles: this.T, obsDim: this.config.obsDim, actDim: this.config.actDim });
-    const o = this.out;
-    readArray(r, L.drag, o.drag);
-    readArray(r, L.power, o.actuationPower);
-    readArray(r, L.obs, o.obs);
-    readArray(r, L.reward, o.reward);
-    readArray(r, L.done, o.done);
-    readArray(r, L.truncated, o.truncated);
-    readArray(r, L.diverged, o.diverged);
-    return o;
+    readTransition(r, L, this.out);
+    return this.out;
   }
 
   oppositionSignal(): Float64Array {

@@ -21,7 +21,7 @@ import {
   MSG,
   readArray,
   transitionLayout,
-  writeArray,
+  writeTransition,
   type Frame,
 } from '../wire/protocol';
 
@@ -162,13 +162,7 @@ export async function runSolver(makeEnv: (copies: number) => TiledEnv, a: Addres
           }
           readArray(p, 0, actions);
           const s = env.step(actions);
-          writeArray(transition, L.drag, s.drag);
-          writeArray(transition, L.power, s.actuationPower);
-          writeArray(transition, L.obs, s.obs);
-          writeArray(transition, L.reward, s.reward);
-          writeArray(transition, L.done, s.done);
-          writeArray(transition, L.truncated, s.truncated);
-          writeArray(transition, L.diverged, s.diverged);
+          writeTransition(transition, L, s);
           reply(f, MSG.TRANSITION, transition);
           steps++;
           break;

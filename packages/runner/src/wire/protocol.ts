@@ -348,21 +348,36 @@ export interface EnvShape {
   readonly actDim: number;
 }
 
+/** The StepOut arrays a TRANSITION carries, in payload order (8-byte values first, so every array is aligned). */
+export const TRANSITION_FIELDS = ['drag', 'actuationPower', 'obs', 'reward', 'done', 'truncated', 'diverged'] as const;
+export type TransitionField = (typeof TRANSITION_FIELDS)[number];
+export type TransitionArrays = { readonly [K in TransitionField]: Float32Array | Float64Array | Uint8Array };
+
 /**
- * Byte offsets of the TRANSITION payload (8-byte values first, so every array is aligned):
+ * Byte offsets of the TRANSITION payload:
  *   f64 drag[B*T], f64 actuationPower[B*T], f32 obs[B*T*obsDim], f32 reward[B*T],
  *   u8 done[B], u8 truncated[B], u8 diverged[B].
  */
-export function transitionLayout(s: EnvShape): { drag: number; power: number; obs: number; reward: number; done: number; truncated: number; diverged: number; bytes: number } {
+export function transitionLayout(s: EnvShape): Record<TransitionField, number> & { bytes: number } {
   const bt = s.copies * s.tiles;
-  const drag = 0;
-  const power = drag + 8 * bt;
-  const obs = power + 8 * bt;
-  const reward = obs + 4 * bt * s.obsDim;
-  const done = reward + 4 * bt;
-  const truncated = done + s.copies;
-  const diverged = truncated + s.copies;
-  return { drag, power, obs, reward, done, truncated, diverged, bytes: diverged + s.copies };
+  const sizes: Record<TransitionField, number> = { drag: 8 * bt, actuationPower: 8 * bt, obs: 4 * bt * s.obsDim, reward: 4 * bt, done: s.copies, truncated: s.copies, diverged: s.copies };
+  const at = {} as Record<TransitionField, number>;
+  let off = 0;
+  for (const k of TRANSITION_FIELDS) {
+    at[k] = off;
+    off += sizes[k];
+  }
+  return { ...at, bytes: off };
+}
+
+/** Write a step's arrays into a TRANSITION payload. */
+export function writeTransition(buf: Uint8Array, layout: Record<TransitionField, number>, step: TransitionArrays): void {
+  for (const k of TRANSITION_FIELDS) writeArray(buf, layout[k], step[k]);
+}
+
+/** Read a TRANSITION payload into a step's arrays (sized for the shape). */
+export function readTransition(buf: Uint8Array, layout: Record<TransitionField, number>, out: TransitionArrays): void {
+  for (const k of TRANSITION_FIELDS) readArray(buf, layout[k], out[k]);
 }
 
 /** The exact payload size of each reply of the environment link (SNAPSHOT: at most). */

@@ -9,20 +9,20 @@ import { createAgent, type Agent, type PolicySnapshot } from '@tilewise/agent';
 import { KsEnv, parseKsConfig, Rng, type EnvSpec } from '@tilewise/envs';
 import type { ExportInput } from '../../src/export';
 
-/** The env section of configs/ks-l22-t4.yaml (the fields that shape observations and actions). */
+/**
+ * The KS env the export tests use: L = 22, 4 tiles, 8 sensors per window and the neighbours'
+ * windows (24 observations per tile), one actuator per tile, bound 0.5. Pinned here (not read
+ * from configs/) so the tests do not move when the shipped configs change.
+ */
 export const KS_ENV = {
   kind: 'ks',
   length: 22,
   points: 64,
-  dt: 0.05,
   tiles: 4,
   actuators: 4,
-  actuatorWidth: 1,
   actionBound: 0.5,
-  controlSteps: 5,
   sensorsPerTile: 8,
   haloTiles: 1,
-  episodeLength: 400,
 } as const;
 
 /** The KS spec without running anything (P0 given, never measured). */
