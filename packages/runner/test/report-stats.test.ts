@@ -257,12 +257,13 @@ describe('quadrant fractions (fluctuationStats of @tilewise/envs, as the report 
 
 describe('fluctuation samples from field snapshots', () => {
   /** A one-controller KS domain whose snapshots are given (only the fields the function reads). */
-  function ksDomain(snaps: number[][], decisions: number[], discard: number): { d: DomainView; c: ControllerView } {
+  function ksDomain(snaps: number[][], decisions: number[], discard: number, episodes: number[] = decisions.map(() => 0), diverged: boolean[] = [false]): { d: DomainView; c: ControllerView } {
     const n = snaps[0]!.length;
     const field = Float32Array.from(snaps.flat());
-    const fieldIndex = Int32Array.from(decisions.flatMap((k) => [0, k]));
+    const fieldIndex = Int32Array.from(decisions.flatMap((k, i) => [episodes[i]!, k]));
     const domain = { dir: '/x', summary: { protocol: { discardDecisions: discard } } };
-    const c = { id: 'c', role: 'none', entries: [{ domain, series: { field, fieldIndex, fieldSize: n } }] } as unknown as ControllerView;
+    const summary = { perEpisode: diverged.map((dv) => ({ diverged: dv })) };
+    const c = { id: 'c', role: 'none', entries: [{ domain, summary, series: { field, fieldIndex, fieldSize: n } }] } as unknown as ControllerView;
     const d = { kind: 'ks', env: { points: n, length: 2 * Math.PI * 2 } } as unknown as DomainView;
     return { d, c };
   }
@@ -283,5 +284,11 @@ describe('fluctuation samples from field snapshots', () => {
     });
     const early = ksDomain([u], [0], 5); // its only snapshot is inside the transient
     expect(fluctuationSamples(early.d, early.c)).toBeNull();
+    // A diverged episode's snapshots (a zeroed state) are left out, as in the evaluation's statistics.
+    const zeros = x.map(() => 0);
+    const two = ksDomain([u, zeros], [10, 10], 5, [0, 1], [false, true]);
+    const t = fluctuationSamples(two.d, two.c)!;
+    expect(t.snapshots).toBe(1);
+    expect(t.a.length).toBe(n);
   });
 });

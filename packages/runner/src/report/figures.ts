@@ -18,6 +18,7 @@
  */
 import type { RunLog } from './data';
 import {
+  afterTransient,
   amplitudesAfterTransient,
   fieldGrid,
   fluctuationSamples,
@@ -582,11 +583,9 @@ function histogramFigures(d: DomainView, bins: number): Figure[] {
   const shares: Array<Record<string, unknown>> = [];
   const panels: string[] = [];
   for (const c of actuated(d)) {
-    const amps = amplitudesAfterTransient(c);
+    const amps = amplitudesAfterTransient(c, bound);
     if (!amps) continue;
-    // Recorded amplitudes are clipped; clamp the float32 rounding of a clipped value back inside.
-    const clamped = Float64Array.from(amps, (a) => Math.max(-bound, Math.min(bound, a)));
-    const h = histogram(clamped, bins, -bound, bound);
+    const h = histogram(amps, bins, -bound, bound);
     const sh = boundShares(amps, bound);
     const panel = `${c.id} (at bounds ${pct(sh.atBounds)})`;
     panels.push(panel);
@@ -674,22 +673,11 @@ function controlLawFigure(d: DomainView): Figure | null {
   const bound = d.actionBound;
   if (bound === null) return null;
   const cs = actuated(d);
-  const pairs: Array<{ c: ControllerView; s: number[]; a: number[] }> = [];
+  const pairs: Array<{ c: ControllerView; s: Float32Array; a: Float64Array }> = [];
   for (const c of cs) {
-    const s: number[] = [];
-    const a: number[] = [];
-    for (const e of c.entries) {
-      const sd = e.domain.series;
-      if (!e.series || !sd) continue;
-      const { episodes: E, decisions: D, actuators: A, discardDecisions: k0 } = sd;
-      for (let ep = 0; ep < E; ep++) {
-        for (let i = (ep * D + k0) * A; i < (ep + 1) * D * A; i++) {
-          s.push(e.series.signal[i]!);
-          a.push(Math.max(-bound, Math.min(bound, e.series.actions[i]!)));
-        }
-      }
-    }
-    if (s.length) pairs.push({ c, s, a });
+    const s = afterTransient(c, (x) => x.signal);
+    const a = amplitudesAfterTransient(c, bound);
+    if (s && a) pairs.push({ c, s, a });
   }
   if (!pairs.length) return null;
   const smax = Math.max(...pairs.map((p) => maxAbs(p.s))) || 1;

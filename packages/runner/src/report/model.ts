@@ -7,7 +7,7 @@
  */
 import { fluctuationStats, meanWithCi, SpectralDerivative } from '@tilewise/envs';
 import { canonicalJson, type ControllerSeries, type ControllerSummary, type DomainData, type RunData, type SweepAggregate } from './data';
-import { band, boundShares, pairedDifference, rms, type BandKind, type BoundShares } from './stats';
+import { boundShares, pairedDifference, rms, type BandKind, type BoundShares } from './stats';
 
 export interface Setting {
   readonly key: string;
@@ -185,15 +185,30 @@ function overSeeds(values: ReadonlyArray<number | null | undefined>): Ci {
   return { mean: m.mean, halfWidth: Number.isFinite(m.halfWidth) ? m.halfWidth : null, n: m.n };
 }
 
-/** Applied amplitudes of a controller after the discarded transient, pooled over its runs. */
-export function amplitudesAfterTransient(c: ControllerView): Float32Array | null {
+/** Episode indices (in protocol.seeds order) that diverged: their recorded series end in a zeroed or NaN state. */
+export function divergedEpisodes(summary: ControllerSummary): Set<number> {
+  const out = new Set<number>();
+  summary.perEpisode.forEach((e, i) => {
+    if (e.diverged) out.add(i);
+  });
+  return out;
+}
+
+/**
+ * A per-actuator series of a controller ([E, D, A] blocks: actions or signal) for the decisions
+ * after the discarded transient, pooled over its runs; episodes that diverged are left out,
+ * as in the evaluation's statistics. Null when nothing was recorded.
+ */
+export function afterTransient(c: ControllerView, pick: (s: ControllerSeries) => Float32Array): Float32Array | null {
   const parts: Float32Array[] = [];
   for (const e of c.entries) {
     const s = e.series;
     const sd = e.domain.series;
     if (!s || !sd || sd.actuators === 0) continue;
     const { episodes: E, decisions: D, actuators: A, discardDecisions: k0 } = sd;
-    for (let ep = 0; ep < E; ep++) parts.push(s.actions.subarray((ep * D + k0) * A, (ep + 1) * D * A));
+    const diverged = divergedEpisodes(e.summary);
+    const data = pick(s);
+    for (let ep = 0; ep < E; ep++) if (!diverged.has(ep)) parts.push(data.subarray((ep * D + k0) * A, (ep + 1) * D * A));
   }
   if (!parts.length) return null;
   const out = new Float32Array(parts.reduce((n, p) => n + p.length, 0));
@@ -205,10 +220,20 @@ export function amplitudesAfterTransient(c: ControllerView): Float32Array | null
   return out;
 }
 
+/**
+ * Applied amplitudes of a controller after the discarded transient (see afterTransient), as
+ * float64 clamped to [-bound, bound]: they were clipped when applied, and their float32
+ * rounding may land just outside the bound.
+ */
+export function amplitudesAfterTransient(c: ControllerView, bound: number): Float64Array | null {
+  const a = afterTransient(c, (s) => s.actions);
+  return a && Float64Array.from(a, (v) => (v > bound ? bound : v < -bound ? -bound : v));
+}
+
 export function controllerRows(d: DomainView): ControllerRow[] {
   return d.controllers.map((c) => {
-    const amps = amplitudesAfterTransient(c);
-    const bounds = amps && d.actionBound ? boundShares(amps, d.actionBound) : null;
+    const amps = d.actionBound ? amplitudesAfterTransient(c, d.actionBound) : null;
+    const bounds = amps ? boundShares(amps, d.actionBound!) : null;
     const sums = c.entries.map((e) => e.summary);
     const episodes = sums.reduce((n, s) => n + s.episodes, 0);
     const diverged = sums.reduce((n, s) => n + s.divergedEpisodes, 0);
@@ -354,11 +379,12 @@ export function fluctuationSamples(d: DomainView, c: ControllerView): Fluctuatio
     const s = e.series;
     if (!s || s.fieldSize === 0) continue;
     const discard = e.domain.summary.protocol.discardDecisions;
+    const diverged = divergedEpisodes(e.summary);
     const F = s.fieldIndex.length / 2;
     for (let f = 0; f < F; f++) {
-      if (s.fieldIndex[2 * f + 1]! < discard) continue;
+      if (s.fieldIndex[2 * f + 1]! < discard || diverged.has(s.fieldIndex[2 * f]!)) continue;
       const snap = s.field.subarray(f * s.fieldSize, (f + 1) * s.fieldSize);
-      if (!snap.every(Number.isFinite)) continue; // a diverged copy's zeroed or NaN state
+      if (!snap.every(Number.isFinite)) continue; // defensive: one NaN would poison every mean
       snapshots++;
       if (deriv) {
         if (s.fieldSize !== g.nx) throw new Error(`${e.domain.dir}: field snapshots of ${s.fieldSize} values, the ks grid has ${g.nx} points`);
@@ -418,12 +444,4 @@ export function quadrantRow(controller: string, s: FluctuationSamples): Quadrant
     rmsA: rms(s.a),
     rmsB: rms(s.b),
   };
-}
-
-/** Bands of a statistic over the per-seed values of a setting (for the runs table). */
-export function bestValidation(s: Setting, kind: BandKind) {
-  return band(
-    s.runs.map((r) => r.summary?.best?.drag ?? NaN),
-    kind,
-  );
 }
