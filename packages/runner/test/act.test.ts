@@ -10,6 +10,8 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { Rng } from '@tilewise/envs';
 import { EXIT_CONFIG, EXIT_OK, main, type Io } from '../src/cli';
 import { formatActions, parseObservations } from '../src/commands/act';
+import { loadRunConfig, resolvedConfig } from '../src/config';
+import { configHash, loadPolicyJson } from '../src/export';
 import { policyEnvSpec, savePolicy } from '../src/policy';
 import { RUN_FILES } from '../src/trainer';
 import { randomObservations, trainedPolicy, type TrainedPolicy } from './helpers/policy';
@@ -64,6 +66,9 @@ describe('tilewise export', () => {
     const io = capture();
     expect(await main(['export', run, '--format', 'json'], io)).toBe(EXIT_OK);
     expect(io.lines).toEqual([join(run, 'export', 'tilewise_policy.json')]);
+    const exported = loadPolicyJson(io.lines[0]!);
+    expect(exported.metadata.configHash).toBe(configHash(resolvedConfig(loadRunConfig(join(run, RUN_FILES.config)))));
+    expect(exported.snapshot.params).toEqual(t.snapshot.params);
     const missing = capture();
     expect(await main(['export', run, '--policy', 'latest'], missing)).toBe(EXIT_CONFIG);
     expect(missing.errors.join('\n')).toMatch(/the run has no latest policy yet/);
