@@ -10,6 +10,7 @@
  * final checkpoint, so a later run of the sweep resumes where it stopped; then the process exits.
  */
 import { ConfigError } from '@tilewise/envs';
+import { onParentGone } from './parent';
 import { executeRun, type RunProgress, type RunRecord } from './run';
 import type { RunTask } from './spec';
 
@@ -32,7 +33,7 @@ const stop = (why: string) => (): void => {
 };
 process.on('SIGINT', stop('SIGINT'));
 process.on('SIGTERM', stop('SIGTERM'));
-process.on('disconnect', stop('the sweep process went away'));
+onParentGone((why) => stop(why)());
 
 const send = (m: PoolReply): Promise<void> =>
   new Promise((resolve) => {

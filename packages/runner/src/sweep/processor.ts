@@ -7,18 +7,19 @@
  * - A configuration error cannot be cured by a retry: it fails the job for good (UnrecoverableError).
  * - A cancelled job (the worker stops, or lost the job's lock) stops training with a checkpoint
  *   and goes back to the queue (WaitingError), so it resumes on the next worker that takes it.
- * - If the worker process dies, this process exits at once (the IPC channel closes): the last
- *   checkpoint is the resume point, and a second process must not write the run directory while
- *   another worker resumes it.
+ * - If the worker process dies, this process exits at once (parent.ts): the last checkpoint is
+ *   the resume point, and a second process must not write the run directory while another
+ *   worker resumes it.
  */
 import { join } from 'node:path';
 import { UnrecoverableError, WaitingError, type SandboxedJob } from 'bullmq';
 import { ConfigError } from '@tilewise/envs';
 import { executeRun, type RunRecord } from './run';
 import type { RunTask } from './spec';
+import { onParentGone } from './parent';
 import { PROCESSOR_ENV } from './queue';
 
-process.on('disconnect', () => process.exit(1));
+onParentGone(() => process.exit(1));
 
 export async function processRunJob(job: SandboxedJob<RunTask, RunRecord>, token?: string, signal?: AbortSignal): Promise<RunRecord> {
   const task = job.data;
