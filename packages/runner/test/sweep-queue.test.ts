@@ -158,6 +158,7 @@ describe.skipIf(skip)('distributed sweep (BullMQ on a test-owned redis-server)',
       const other = victim.worker === 'wA' ? 'wB' : 'wA';
       const job = (await queue.getJob(jobId(victim.task))) as Job<RunTask, RunRecord>;
       expect(await job.getState()).toBe('completed');
+      expect(job.opts).toMatchObject({ attempts: 3, backoff: { type: 'exponential', delay: 1000 } }); // retry: of the sweep file
       expect(job.processedBy).toBe(other);
       expect(job.stalledCounter).toBeGreaterThanOrEqual(1);
       const runDir = join(shared, sweep.name, victim.task.runPath);
