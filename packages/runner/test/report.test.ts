@@ -198,6 +198,18 @@ describe('tilewise report (several runs, sweeps, errors)', () => {
     writeFileSync(json, JSON.stringify({ runs: [{ setting: 'a', runDir: ks1 }, { setting: 'a', runDir: ks2 }] }));
     expect(await main(['report', json, '--out', join(root, 'sweep-json'), '--no-svg', '-q'], capture())).toBe(EXIT_OK);
     expect(readJson(join(root, 'sweep-json', 'report.json')).settings).toEqual([{ label: 'a', runs: [ks1, ks2] }]);
+    // The per-run table of tilewise sweeps (runs.csv: label, status, run_dir; a failed run has no directory) ...
+    const runsCsv = join(root, 'runs.csv');
+    writeFileSync(runsCsv, `key,label,seed,status,run_dir,error\nk1,box-22,1,completed,${ks1},\nk1,box-22,2,completed,${ks2},\nk1,box-22,3,failed,,"killed, twice"\n`);
+    const io2 = capture();
+    expect(await main(['report', runsCsv, '--out', join(root, 'sweep-runs'), '--no-svg', '-q'], io2), io2.errText()).toBe(EXIT_OK);
+    expect(io2.errText()).toMatch(/warning: .*runs\.csv: left out 1 row\(s\) without a completed run \(row 3: status failed\)/);
+    expect(readJson(join(root, 'sweep-runs', 'report.json')).settings).toEqual([{ label: 'box-22', runs: [ks1, ks2] }]);
+    // ... and its aggregate.json (settings, each with its runs).
+    const agg = join(root, 'aggregate.json');
+    writeFileSync(agg, JSON.stringify({ format: 'x', runs: { planned: 2 }, settings: [{ label: 'b1', runs: [{ seed: 1, status: 'completed', runDir: ks1 }] }, { label: 'b2', runs: [{ seed: 2, status: 'completed', runDir: ks2 }] }] }));
+    expect(await main(['report', agg, '--out', join(root, 'sweep-agg'), '--no-svg', '-q'], capture())).toBe(EXIT_OK);
+    expect(readJson(join(root, 'sweep-agg', 'report.json')).settings.map((x: any) => x.label)).toEqual(['b1', 'b2']);
   });
 
   it('bad inputs exit 2 with a message naming the file and what is wrong', async () => {

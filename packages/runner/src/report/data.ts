@@ -17,6 +17,7 @@ import { decodeContainer, getBlock } from '@tilewise/agent';
 import { parse as parseYaml } from 'yaml';
 import { z } from 'zod';
 import { EVALUATION_FORMAT, SERIES_KIND } from '../evaluation';
+import type { Recording } from '../recorder';
 import { RUN_FILES } from '../trainer';
 
 /** Bad input: the message starts with the file (or directory) and says what is wrong. */
@@ -124,22 +125,13 @@ const seriesMetaSchema = z.looseObject({
   controllers: z.array(z.looseObject({ prefix: z.string(), name: z.string(), role: z.string(), fieldSize: z.number().int().nonnegative() })),
 });
 
-/** One controller's recorded series (recorder.ts): E episodes, D decisions, A actuators. */
-export interface ControllerSeries {
+/**
+ * One controller's recorded series (recorder.ts `Recording`: drag and power [E, D], actions and
+ * signal [E, D, A], field snapshots [F, fieldSize] with fieldIndex [F, 2], histogram [bins]).
+ */
+export interface ControllerSeries extends Recording {
   readonly name: string;
   readonly role: string;
-  /** Domain-mean drag analogue per decision, [E, D] (NaN once diverged). */
-  readonly drag: Float32Array;
-  readonly power: Float32Array;
-  /** Applied amplitudes [E, D, A] and the opposition signal at each actuator [E, D, A]. */
-  readonly actions: Float32Array;
-  readonly signal: Float32Array;
-  /** Field snapshots [F, fieldSize] and their (episode, decision) [F, 2]. */
-  readonly field: Float32Array;
-  readonly fieldIndex: Int32Array;
-  readonly fieldSize: number;
-  /** Counts of applied amplitudes over [-bound, bound] after the discarded transient. */
-  readonly histogram: Uint32Array;
 }
 
 export interface SeriesData {
@@ -409,10 +401,12 @@ export interface SweepAggregate {
   readonly path: string;
   readonly columns: readonly string[];
   readonly rows: readonly SweepRow[];
+  /** Rows left out (a failed or missing run, no run directory), with the reason. */
+  readonly skipped: readonly string[];
 }
 
 const RUN_DIR_KEYS = ['runDir', 'run_dir', 'rundir', 'run'];
-const SETTING_KEYS = ['setting', 'settingName', 'setting_name', 'name'];
+const SETTING_KEYS = ['setting', 'label', 'settingName', 'setting_name', 'name'];
 
 /** Split one CSV line (RFC 4180: quoted fields, doubled quotes inside them). */
 function csvCells(line: string, where: string): string[] {
@@ -438,53 +432,80 @@ function csvCells(line: string, where: string): string[] {
   return out;
 }
 
+function readCsvRecords(path: string, abs: string): Array<Record<string, unknown>> {
+  let text: string;
+  try {
+    text = readFileSync(abs, 'utf8');
+  } catch (e) {
+    return fail(path, `cannot read the sweep aggregate (${(e as NodeJS.ErrnoException).code ?? (e as Error).message})`);
+  }
+  const lines = text.split(/\r?\n/).filter((l) => l.trim() !== '');
+  if (lines.length < 2) fail(path, 'expected a header line and at least one row');
+  const header = csvCells(lines[0]!, `${path}:1`);
+  return lines.slice(1).map((l, i) => {
+    const cells = csvCells(l, `${path}:${i + 2}`);
+    if (cells.length !== header.length) fail(`${path}:${i + 2}`, `${cells.length} fields, the header has ${header.length}`);
+    return Object.fromEntries(header.map((h, c) => [h, cells[c]!]));
+  });
+}
+
+/** JSON rows: an array, an object with a `runs`/`rows` array, or per-setting `settings[].runs` (labelled by the setting). */
+function jsonRecords(path: string, data: unknown): Array<Record<string, unknown>> {
+  const isObj = (v: unknown): v is Record<string, unknown> => !!v && typeof v === 'object' && !Array.isArray(v);
+  let list: unknown = Array.isArray(data) ? data : isObj(data) ? (Array.isArray(data.runs) ? data.runs : data.rows) : undefined;
+  if (!Array.isArray(list) && isObj(data) && Array.isArray(data.settings)) {
+    list = data.settings.flatMap((st, i) => {
+      if (!isObj(st) || !Array.isArray(st.runs)) return fail(path, `settings[${i}]: expected an object with a "runs" array`);
+      return st.runs.map((r) => (isObj(r) ? { setting: st.label ?? st.key ?? `setting ${i + 1}`, ...r } : r));
+    });
+  }
+  if (!Array.isArray(list)) return fail(path, 'expected an array of run rows, an object with a "runs" (or "rows") array, or "settings" each with a "runs" array');
+  list.forEach((r, i) => {
+    if (!isObj(r)) fail(path, `runs[${i}]: expected an object`);
+  });
+  return list as Array<Record<string, unknown>>;
+}
+
 /**
- * A sweep's per-run aggregate, JSON or CSV. Each row is one run: it must name its run
- * directory in a column `runDir` (or run_dir, run; relative paths are taken from the
- * aggregate's directory) and may name its setting in `setting` (or name). JSON: an array of
- * row objects, or an object whose `runs` (or `rows`) is one. Other columns are kept and shown
- * as given. Runs of one setting are drawn as seeds of that setting.
+ * A sweep's per-run aggregate, JSON or CSV. Each row is one run: it names its run directory
+ * in a column `runDir` (or run_dir, rundir, run; relative paths are taken from the
+ * aggregate's directory) and may name its setting in `setting` (or label, settingName,
+ * setting_name, name). JSON: an array of rows, an object whose `runs` (or `rows`) is one, or
+ * an object whose `settings` each carry their `runs` (labelled by the setting's `label`).
+ * Rows without a run directory, or whose `status` column says other than "completed", are
+ * left out and listed in `skipped`. Other columns are kept and shown as given; runs of one
+ * setting are drawn as seeds of that setting.
  */
 export function readSweepAggregate(path: string): SweepAggregate {
   const abs = resolve(path);
   const base = dirname(abs);
-  let records: Array<Record<string, unknown>>;
-  if (/\.csv$/i.test(path)) {
-    let text: string;
-    try {
-      text = readFileSync(abs, 'utf8');
-    } catch (e) {
-      return fail(path, `cannot read the sweep aggregate (${(e as NodeJS.ErrnoException).code ?? (e as Error).message})`);
-    }
-    const lines = text.split(/\r?\n/).filter((l) => l.trim() !== '');
-    if (lines.length < 2) fail(path, 'expected a header line and at least one row');
-    const header = csvCells(lines[0]!, `${path}:1`);
-    records = lines.slice(1).map((l, i) => {
-      const cells = csvCells(l, `${path}:${i + 2}`);
-      if (cells.length !== header.length) fail(`${path}:${i + 2}`, `${cells.length} fields, the header has ${header.length}`);
-      return Object.fromEntries(header.map((h, c) => [h, cells[c]!]));
-    });
-  } else {
-    const data = readJson(abs, 'sweep aggregate');
-    const list = Array.isArray(data) ? data : ((data as Record<string, unknown> | null)?.runs ?? (data as Record<string, unknown> | null)?.rows);
-    if (!Array.isArray(list)) return fail(path, 'expected an array of run rows, or an object with a "runs" (or "rows") array');
-    list.forEach((r, i) => {
-      if (!r || typeof r !== 'object' || Array.isArray(r)) fail(path, `runs[${i}]: expected an object`);
-    });
-    records = list as Array<Record<string, unknown>>;
-  }
+  const records = /\.csv$/i.test(path) ? readCsvRecords(path, abs) : jsonRecords(path, readJson(abs, 'sweep aggregate'));
   if (!records.length) fail(path, 'the sweep aggregate lists no runs');
   const columns = [...new Set(records.flatMap((r) => Object.keys(r)))];
   const runKey = RUN_DIR_KEYS.find((k) => columns.includes(k));
-  if (!runKey) fail(path, `no run directory column (expected one of ${RUN_DIR_KEYS.join(', ')}; found ${columns.join(', ')})`);
+  if (!runKey) {
+    fail(path, `no run directory column (expected one of ${RUN_DIR_KEYS.join(', ')}; found ${columns.join(', ')}); a per-setting table has none, give the per-run one`);
+  }
   const settingKey = SETTING_KEYS.find((k) => columns.includes(k));
-  const rows = records.map((r, i): SweepRow => {
+  const rows: SweepRow[] = [];
+  const skipped: string[] = [];
+  records.forEach((r, i) => {
     const dir = r[runKey!];
-    if (typeof dir !== 'string' || dir === '') fail(path, `row ${i + 1}: "${runKey}" is ${JSON.stringify(dir)}, expected a run directory`);
+    const status = r.status;
+    if (typeof status === 'string' && status !== '' && status !== 'completed') {
+      skipped.push(`row ${i + 1}: status ${status}`);
+      return;
+    }
+    if (dir === null || dir === undefined || dir === '') {
+      skipped.push(`row ${i + 1}: no run directory`);
+      return;
+    }
+    if (typeof dir !== 'string') fail(path, `row ${i + 1}: "${runKey}" is ${JSON.stringify(dir)}, expected a run directory`);
     const cells: Record<string, string | number | boolean | null> = {};
     for (const [k, v] of Object.entries(r)) cells[k] = v === null || ['string', 'number', 'boolean'].includes(typeof v) ? (v as string | number | boolean | null) : JSON.stringify(v);
     const setting = settingKey ? r[settingKey] : null;
-    return { runDir: resolve(base, dir as string), setting: setting === null || setting === undefined ? null : String(setting), cells };
+    rows.push({ runDir: resolve(base, dir as string), setting: setting === null || setting === undefined || setting === '' ? null : String(setting), cells });
   });
-  return { path: abs, columns, rows };
+  if (!rows.length) fail(path, `no completed run with a run directory (${skipped.length} rows left out: ${skipped.slice(0, 3).join('; ')})`);
+  return { path: abs, columns, rows, skipped };
 }

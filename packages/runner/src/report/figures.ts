@@ -70,6 +70,29 @@ const SIZE = { width: 560, height: 240 };
 const LINE_LEGEND = { symbolType: 'stroke', symbolStrokeWidth: 2.5, symbolOpacity: 1 };
 const PANEL = { width: 200, height: 200 };
 
+/** Small multiples: one panel per value of `field` (panels in `order`), each drawing `layer`. */
+function panels(rows: unknown[], order: readonly string[], layer: VlSpec[], o: { field?: string; dir?: 'column' | 'row'; width?: number; height?: number } = {}): VlSpec {
+  return {
+    data: { values: rows },
+    facet: { [o.dir ?? 'column']: { field: o.field ?? 'controller', type: 'nominal', title: null, sort: order } },
+    spec: { width: o.width ?? PANEL.width, height: o.height ?? PANEL.height, layer },
+  };
+}
+
+/** One axis of a heatmap: cells span [from, to]; a fixed domain is drawn without rounding. */
+interface CellAxis {
+  readonly from: string;
+  readonly to: string;
+  readonly title: string;
+  readonly domain?: readonly [number, number];
+}
+
+/** A heatmap layer: rectangles [x.from, x.to] x [y.from, y.to] colored by `color`, optionally filtered. */
+function cellLayer(name: string, x: CellAxis, y: CellAxis, color: VlSpec, filter?: string): VlSpec {
+  const axis = (a: CellAxis) => ({ field: a.from, type: 'quantitative', title: a.title, ...(a.domain ? { scale: { domain: a.domain, nice: false } } : {}) });
+  return { name, ...(filter ? { transform: [{ filter }] } : {}), mark: { type: 'rect' }, encoding: { x: axis(x), x2: { field: x.to }, y: axis(y), y2: { field: y.to }, color } };
+}
+
 function domainTitle(d: DomainView): string {
   const e = d.env;
   if (d.kind === 'ks') return `${d.label}: KS L = ${e.length}, ${d.tiles} tiles`;
@@ -409,11 +432,11 @@ function spaceTimeFigure(d: DomainView): Figure | null {
   if (!g || d.kind !== 'ks' || ci === null) return null;
   const rows: Array<Record<string, unknown>> = [];
   let umax = 0;
-  const panels: string[] = [];
+  const order: string[] = [];
   for (const c of d.controllers) {
     const snaps = firstEpisodeSnapshots(c);
     if (!snaps || snaps.frames.length < 2 || snaps.series.fieldSize !== g.nx) continue;
-    panels.push(c.id);
+    order.push(c.id);
     const sx = Math.ceil(g.nx / HEATMAP_MAX.columns);
     const st = Math.ceil(snaps.frames.length / HEATMAP_MAX.rows);
     const dx = g.lx / g.nx;
@@ -437,27 +460,19 @@ function spaceTimeFigure(d: DomainView): Figure | null {
     caption:
       `u(x, t) over the first held-out episode for each controller (the same initial state), from the recorded field snapshots; time runs upwards from the moment the controller is switched on. ` +
       `Shared, symmetric color scale; the tiles are ${g.lx / d.tiles} long. A controller that calms the flow shows weaker, more regular streaks.`,
-    spec: {
-      data: { values: rows },
-      facet: { column: { field: 'controller', type: 'nominal', title: null, sort: panels } },
-      spec: {
-        width: PANEL.width,
-        height: 260,
-        layer: [
-          {
-            name: 'cells',
-            mark: { type: 'rect' },
-            encoding: {
-              x: { field: 'x0', type: 'quantitative', title: 'x', scale: { domain: [0, g.lx], nice: false } },
-              x2: { field: 'x1' },
-              y: { field: 't0', type: 'quantitative', title: 'time' },
-              y2: { field: 't1' },
-              color: { field: 'u', type: 'quantitative', title: 'u', scale: { scheme: 'redblue', reverse: true, domain: [-umax, umax] } },
-            },
-          },
-        ],
-      },
-    },
+    spec: panels(
+      rows,
+      order,
+      [
+        cellLayer(
+          'cells',
+          { from: 'x0', to: 'x1', title: 'x', domain: [0, g.lx] },
+          { from: 't0', to: 't1', title: 'time' },
+          { field: 'u', type: 'quantitative', title: 'u', scale: { scheme: 'redblue', reverse: true, domain: [-umax, umax] } },
+        ),
+      ],
+      { height: 260 },
+    ),
     primary: { name: 'cells_marks', items: rows.length },
   };
 }
@@ -467,7 +482,7 @@ function snapshotFigure(d: DomainView): Figure | null {
   if (!g || d.kind !== 'kolmogorov') return null;
   const P = g.nx * g.ny;
   const rows: Array<Record<string, unknown>> = [];
-  const panels: string[] = [];
+  const order: string[] = [];
   let wmax = 0;
   let at = 0;
   for (const c of d.controllers) {
@@ -475,7 +490,7 @@ function snapshotFigure(d: DomainView): Figure | null {
     if (!snaps || snaps.series.fieldSize !== 3 * P) continue;
     const last = snaps.frames.at(-1)!;
     at = last.decision;
-    panels.push(c.id);
+    order.push(c.id);
     const w = snaps.series.field.subarray(last.f * 3 * P, last.f * 3 * P + P);
     const s = Math.max(1, Math.ceil(Math.max(g.nx, g.ny) / 64));
     const dx = g.lx / g.nx;
@@ -494,27 +509,14 @@ function snapshotFigure(d: DomainView): Figure | null {
     section: domainTitle(d),
     title: 'Vorticity snapshots',
     caption: `Vorticity of the first held-out episode at its last recorded decision (${at}) for each controller, from the same initial state; shared symmetric color scale. The forcing is sin(n y) along x.`,
-    spec: {
-      data: { values: rows },
-      facet: { column: { field: 'controller', type: 'nominal', title: null, sort: panels } },
-      spec: {
-        width: PANEL.width,
-        height: PANEL.height,
-        layer: [
-          {
-            name: 'cells',
-            mark: { type: 'rect' },
-            encoding: {
-              x: { field: 'x0', type: 'quantitative', title: 'x', scale: { domain: [0, g.lx], nice: false } },
-              x2: { field: 'x1' },
-              y: { field: 'y0', type: 'quantitative', title: 'y', scale: { domain: [0, g.ly], nice: false } },
-              y2: { field: 'y1' },
-              color: { field: 'w', type: 'quantitative', title: 'vorticity', scale: { scheme: 'redblue', reverse: true, domain: [-wmax, wmax] } },
-            },
-          },
-        ],
-      },
-    },
+    spec: panels(rows, order, [
+      cellLayer(
+        'cells',
+        { from: 'x0', to: 'x1', title: 'x', domain: [0, g.lx] },
+        { from: 'y0', to: 'y1', title: 'y', domain: [0, g.ly] },
+        { field: 'w', type: 'quantitative', title: 'vorticity', scale: { scheme: 'redblue', reverse: true, domain: [-wmax, wmax] } },
+      ),
+    ]),
     primary: { name: 'cells_marks', items: rows.length },
   };
 }
@@ -535,11 +537,11 @@ function actuationFigure(d: DomainView): Figure | null {
   const bound = d.actionBound;
   if (ci === null || bound === null) return null;
   const rows: Array<Record<string, unknown>> = [];
-  const panels: string[] = [];
+  const order: string[] = [];
   for (const c of actuated(d)) {
     const e = c.entries.find((x) => x.series && x.domain.series)!;
     const { decisions: D, actuators: A } = e.domain.series!;
-    panels.push(c.id);
+    order.push(c.id);
     for (let a = 0; a < Math.min(ACTUATORS_SHOWN, A); a++) {
       for (let k = 0; k < D; k++) rows.push({ controller: c.id, actuator: `actuator ${a + 1}`, t: fix(k * ci), a: fix(e.series!.actions[k * A + a]!, 5) });
     }
@@ -551,27 +553,24 @@ function actuationFigure(d: DomainView): Figure | null {
     section: domainTitle(d),
     title: 'Actuation over time',
     caption: `Applied amplitudes of the first ${Math.min(ACTUATORS_SHOWN, d.tiles)} actuators over the first held-out episode (held over each decision interval); dashed: the bounds ±${bound}. No control acts 0 and is not shown.`,
-    spec: {
-      data: { values: rows },
-      facet: { row: { field: 'controller', type: 'nominal', title: null, sort: panels } },
-      spec: {
-        width: SIZE.width,
-        height: 110,
-        layer: [
-          { mark: { type: 'rule', strokeDash: [4, 3], color: '#999' }, encoding: { y: { datum: bound } } },
-          { mark: { type: 'rule', strokeDash: [4, 3], color: '#999' }, encoding: { y: { datum: -bound } } },
-          {
-            name: 'amplitude',
-            mark: { type: 'line', interpolate: 'step-after', strokeWidth: 1.2 },
-            encoding: {
-              x: { field: 't', type: 'quantitative', title: 'time since the controller was switched on', scale: { domain: [0, d.decisions * ci], nice: false } },
-              y: { field: 'a', type: 'quantitative', title: 'amplitude', scale: { domain: [-bound * 1.05, bound * 1.05] } },
-              color: { field: 'actuator', type: 'nominal', title: null, scale: { scheme: 'dark2' } },
-            },
+    spec: panels(
+      rows,
+      order,
+      [
+        { mark: { type: 'rule', strokeDash: [4, 3], color: '#999' }, encoding: { y: { datum: bound } } },
+        { mark: { type: 'rule', strokeDash: [4, 3], color: '#999' }, encoding: { y: { datum: -bound } } },
+        {
+          name: 'amplitude',
+          mark: { type: 'line', interpolate: 'step-after', strokeWidth: 1.2 },
+          encoding: {
+            x: { field: 't', type: 'quantitative', title: 'time since the controller was switched on', scale: { domain: [0, d.decisions * ci], nice: false } },
+            y: { field: 'a', type: 'quantitative', title: 'amplitude', scale: { domain: [-bound * 1.05, bound * 1.05] } },
+            color: { field: 'actuator', type: 'nominal', title: null, scale: { scheme: 'dark2' } },
           },
-        ],
-      },
-    },
+        },
+      ],
+      { dir: 'row', width: SIZE.width, height: 110 },
+    ),
     primary: { name: 'amplitude_marks', items: lines },
   };
 }
@@ -581,14 +580,14 @@ function histogramFigures(d: DomainView, bins: number): Figure[] {
   if (bound === null) return [];
   const hist: Array<Record<string, unknown>> = [];
   const shares: Array<Record<string, unknown>> = [];
-  const panels: string[] = [];
+  const order: string[] = [];
   for (const c of actuated(d)) {
     const amps = amplitudesAfterTransient(c, bound);
     if (!amps) continue;
     const h = histogram(amps, bins, -bound, bound);
     const sh = boundShares(amps, bound);
     const panel = `${c.id} (at bounds ${pct(sh.atBounds)})`;
-    panels.push(panel);
+    order.push(panel);
     h.counts.forEach((n, i) => hist.push({ panel, controller: c.id, a0: fix(h.edges[i]!), a1: fix(h.edges[i + 1]!), share: fix(n / h.total) }));
     shares.push(
       { kind: 'side', controller: c.id, side: 'at the lower bound', share: fix(sh.lower) },
@@ -597,7 +596,7 @@ function histogramFigures(d: DomainView, bins: number): Figure[] {
     );
   }
   if (!hist.length) return [];
-  const order = shares.filter((r) => r.kind === 'total').map((r) => r.controller as string);
+  const barOrder = shares.filter((r) => r.kind === 'total').map((r) => r.controller as string);
   const out: Figure[] = [
     {
       id: `histogram-${d.slug}`,
@@ -606,26 +605,23 @@ function histogramFigures(d: DomainView, bins: number): Figure[] {
       caption:
         `Share of applied amplitudes in each of ${bins} bins over [-${bound}, ${bound}], all actuators, decisions after the transient, all held-out episodes` +
         `${d.controllers.some((c) => c.entries.length > 1) ? ' and seeds' : ''}. Tall end bins mean the controller saturates (a two-level switch puts everything there).`,
-      spec: {
-        data: { values: hist },
-        facet: { column: { field: 'panel', type: 'nominal', title: null, sort: panels } },
-        spec: {
-          width: PANEL.width,
-          height: 160,
-          layer: [
-            {
-              name: 'bins',
-              mark: { type: 'rect', stroke: '#fff', strokeWidth: 0.5 },
-              encoding: {
-                x: { field: 'a0', type: 'quantitative', title: 'amplitude', scale: { domain: [-bound, bound], nice: false } },
-                x2: { field: 'a1' },
-                y: { field: 'share', type: 'quantitative', title: 'share of actuator-decisions' },
-                color: { field: 'controller', type: 'nominal', legend: null, scale: controllerColors(d.controllers) },
-              },
+      spec: panels(
+        hist,
+        order,
+        [
+          {
+            name: 'bins',
+            mark: { type: 'rect', stroke: '#fff', strokeWidth: 0.5 },
+            encoding: {
+              x: { field: 'a0', type: 'quantitative', title: 'amplitude', scale: { domain: [-bound, bound], nice: false } },
+              x2: { field: 'a1' },
+              y: { field: 'share', type: 'quantitative', title: 'share of actuator-decisions' },
+              color: { field: 'controller', type: 'nominal', legend: null, scale: controllerColors(d.controllers) },
             },
-          ],
-        },
-      },
+          },
+        ],
+        { field: 'panel', height: 160 },
+      ),
       primary: { name: 'bins_marks', items: hist.length },
     },
     {
@@ -643,7 +639,7 @@ function histogramFigures(d: DomainView, bins: number): Figure[] {
             transform: [{ filter: "datum.kind === 'side'" }],
             mark: { type: 'bar' },
             encoding: {
-              y: { field: 'controller', type: 'nominal', title: null, sort: order },
+              y: { field: 'controller', type: 'nominal', title: null, sort: barOrder },
               x: { field: 'share', type: 'quantitative', title: 'share of time at a bound', scale: { domain: [0, 1] }, axis: { format: '%' } },
               color: { field: 'side', type: 'nominal', title: null, scale: { domain: ['at the lower bound', 'at the upper bound'], range: ['#6baed6', '#fd8d3c'] } },
               tooltip: [
@@ -656,7 +652,7 @@ function histogramFigures(d: DomainView, bins: number): Figure[] {
           {
             transform: [{ filter: "datum.kind === 'total'" }],
             mark: { type: 'text', align: 'left', dx: 5, fontSize: 11, color: '#333' },
-            encoding: { y: { field: 'controller', type: 'nominal', sort: order }, x: { field: 'share', type: 'quantitative' }, text: { field: 'text' } },
+            encoding: { y: { field: 'controller', type: 'nominal', sort: barOrder }, x: { field: 'share', type: 'quantitative' }, text: { field: 'text' } },
           },
         ],
       },
@@ -698,27 +694,18 @@ function controlLawFigure(d: DomainView): Figure | null {
     caption:
       'Joint histogram of the opposition signal s at each actuator (the sensed quantity opposition control answers) and the amplitude applied there, decisions after the transient, all held-out episodes (log color scale, empty cells blank). ' +
       'Opposition control lies on the line a = clip(-alpha s); a policy that uses more of its observation spreads around it.',
-    spec: {
-      data: { values: rows },
-      facet: { column: { field: 'controller', type: 'nominal', title: null, sort: pairs.map((p) => p.c.id) } },
-      spec: {
-        width: PANEL.width,
-        height: PANEL.height,
-        layer: [
-          {
-            name: 'lawcells',
-            mark: { type: 'rect' },
-            encoding: {
-              x: { field: 's0', type: 'quantitative', title: 'opposition signal s', scale: { domain: [-smax, smax], nice: false } },
-              x2: { field: 's1' },
-              y: { field: 'a0', type: 'quantitative', title: 'amplitude a', scale: { domain: [-bound, bound], nice: false } },
-              y2: { field: 'a1' },
-              color: { field: 'share', type: 'quantitative', title: 'share', scale: { type: 'log', scheme: 'viridis' } },
-            },
-          },
-        ],
-      },
-    },
+    spec: panels(
+      rows,
+      pairs.map((p) => p.c.id),
+      [
+        cellLayer(
+          'lawcells',
+          { from: 's0', to: 's1', title: 'opposition signal s', domain: [-smax, smax] },
+          { from: 'a0', to: 'a1', title: 'amplitude a', domain: [-bound, bound] },
+          { field: 'share', type: 'quantitative', title: 'share', scale: { type: 'log', scheme: 'viridis' } },
+        ),
+      ],
+    ),
     primary: { name: 'lawcells_marks', items: rows.length },
   };
 }
@@ -774,36 +761,27 @@ function jointFigure(d: DomainView): JointResult {
       caption:
         `Joint probability density of ${what}, from the field snapshots after the transient (log color scale; axes ±4 rms of the most energetic controller). ` +
         `Labels: the share of samples in each quadrant, Q1 (${na} > 0, ${nb} > 0), Q2 (${na} < 0, ${nb} > 0), Q3 (both < 0), Q4 (${na} > 0, ${nb} < 0).`,
-      spec: {
-        data: { values: rows },
-        facet: { column: { field: 'controller', type: 'nominal', title: null, sort: samples.map(({ c }) => c.id) } },
-        spec: {
-          width: PANEL.width,
-          height: PANEL.height,
-          layer: [
-            {
-              name: 'jointcells',
-              transform: [{ filter: "datum.kind === 'cell'" }],
-              mark: { type: 'rect' },
-              encoding: {
-                x: { field: 'a0', type: 'quantitative', title: na, scale: { domain: [-ra, ra], nice: false } },
-                x2: { field: 'a1' },
-                y: { field: 'b0', type: 'quantitative', title: nb, scale: { domain: [-rb, rb], nice: false } },
-                y2: { field: 'b1' },
-                color: { field: 'density', type: 'quantitative', title: 'density', scale: { type: 'log', scheme: 'blues' } },
-              },
-            },
-            { mark: { type: 'rule', color: '#444', strokeWidth: 0.7 }, encoding: { x: { datum: 0 } } },
-            { mark: { type: 'rule', color: '#444', strokeWidth: 0.7 }, encoding: { y: { datum: 0 } } },
-            {
-              name: 'quadrantlabels',
-              transform: [{ filter: "datum.kind === 'label'" }],
-              mark: { type: 'text', fontSize: 11, fontWeight: 'bold', color: '#b30000' },
-              encoding: { x: { field: 'x', type: 'quantitative' }, y: { field: 'y', type: 'quantitative' }, text: { field: 'text' } },
-            },
-          ],
-        },
-      },
+      spec: panels(
+        rows,
+        samples.map(({ c }) => c.id),
+        [
+          cellLayer(
+            'jointcells',
+            { from: 'a0', to: 'a1', title: na, domain: [-ra, ra] },
+            { from: 'b0', to: 'b1', title: nb, domain: [-rb, rb] },
+            { field: 'density', type: 'quantitative', title: 'density', scale: { type: 'log', scheme: 'blues' } },
+            "datum.kind === 'cell'",
+          ),
+          { mark: { type: 'rule', color: '#444', strokeWidth: 0.7 }, encoding: { x: { datum: 0 } } },
+          { mark: { type: 'rule', color: '#444', strokeWidth: 0.7 }, encoding: { y: { datum: 0 } } },
+          {
+            name: 'quadrantlabels',
+            transform: [{ filter: "datum.kind === 'label'" }],
+            mark: { type: 'text', fontSize: 11, fontWeight: 'bold', color: '#b30000' },
+            encoding: { x: { field: 'x', type: 'quantitative' }, y: { field: 'y', type: 'quantitative' }, text: { field: 'text' } },
+          },
+        ],
+      ),
       primary: { name: 'jointcells_marks', items: cells },
     },
   };

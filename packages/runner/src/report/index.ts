@@ -54,10 +54,11 @@ function isFile(p: string): boolean {
 }
 
 /** Read every input; a sweep aggregate contributes its runs, labelled by their setting. */
-export function readInputs(inputs: readonly string[]): { runs: RunData[]; sweep: SweepAggregate | null } {
+export function readInputs(inputs: readonly string[]): { runs: RunData[]; sweep: SweepAggregate | null; skipped: string[] } {
   if (!inputs.length) throw new ReportInputError('report: no input (give run directories, evaluation directories or a sweep aggregate)');
   const runs: RunData[] = [];
   let sweep: SweepAggregate | null = null;
+  const skipped: string[] = [];
   const seen = new Set<string>();
   const add = (r: RunData, from: string): void => {
     if (seen.has(r.dir)) throw new ReportInputError(`${from}: ${r.dir} is given more than once`);
@@ -68,6 +69,7 @@ export function readInputs(inputs: readonly string[]): { runs: RunData[]; sweep:
     if (isFile(input) && /\.(json|csv)$/i.test(input)) {
       if (sweep) throw new ReportInputError(`${input}: only one sweep aggregate per report (already reading ${sweep.path})`);
       sweep = readSweepAggregate(input);
+      if (sweep.skipped.length) skipped.push(`${input}: left out ${sweep.skipped.length} row(s) without a completed run (${sweep.skipped.slice(0, 3).join('; ')}${sweep.skipped.length > 3 ? '; ...' : ''})`);
       for (const row of sweep.rows) {
         const r = readInputDir(row.runDir);
         if (row.setting !== null) r.settingLabel = row.setting;
@@ -75,7 +77,7 @@ export function readInputs(inputs: readonly string[]): { runs: RunData[]; sweep:
       }
     } else add(readInputDir(input), input);
   }
-  return { runs, sweep };
+  return { runs, sweep, skipped };
 }
 
 export async function writeReport(inputs: readonly string[], o: ReportOptions): Promise<ReportResult> {
@@ -86,7 +88,8 @@ export async function writeReport(inputs: readonly string[], o: ReportOptions): 
     warnings.push(w);
     o.warn?.(w);
   };
-  const { runs, sweep } = readInputs(inputs);
+  const { runs, sweep, skipped } = readInputs(inputs);
+  skipped.forEach(warn);
   for (const r of runs) {
     if (r.summary && r.summary.status !== 'completed') warn(`${r.dir}: the run is ${r.summary.status} (its curves end at step ${r.summary.steps})`);
     if (r.config && !r.domains.length) warn(`${r.dir}: no evaluation data yet (tilewise evaluate ${r.dir}); the report shows its learning curves only`);
