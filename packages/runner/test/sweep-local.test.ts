@@ -10,6 +10,7 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
 import { main, type Io } from '../src/cli';
+import { readSweepAggregate } from '../src/report/data';
 import type { Aggregate } from '../src/sweep/aggregate';
 import type { RunRecord } from '../src/sweep/run';
 import { loadSweep } from '../src/sweep/spec';
@@ -90,6 +91,12 @@ describe('tilewise sweep (local pool, end to end, tiny)', () => {
     expect(csv[0]).toMatch(/^rank,best,key,label,agent\.finalLayerInit,seeds,completed,failed,metric_mean,metric_ci95,/);
     expect(readFileSync(join(out, 'runs.csv'), 'utf8').trimEnd().split('\n')).toHaveLength(5);
     expect(io.outs.join('\n')).toMatch(/best setting: agent\.finalLayerInit=0\.(003|1) \(key [0-9a-f]{10}\): P\/P0 [0-9.]+ ± [0-9.]+ over 2 seeds/);
+    // The report command reads both the JSON aggregate (settings with their runs) and runs.csv.
+    for (const f of ['aggregate.json', 'runs.csv']) {
+      const g = readSweepAggregate(join(out, f));
+      expect(g.rows.map((r) => r.runDir).sort(), f).toEqual([...dirs].sort());
+      expect(new Set(g.rows.map((r) => r.setting)), f).toEqual(new Set(sweep.settings.map((s) => s.label)));
+    }
     firstMtimes = new Map([...records.keys()].map((id) => [id, statSync(join(out, 'results', `${id}.json`)).mtimeMs]));
   }, 600_000);
 

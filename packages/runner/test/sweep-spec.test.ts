@@ -3,7 +3,7 @@
  * seeds, setting keys (what a finished run is recognised by), and clear errors for bad sweep
  * files, each naming the sweep-file path and the value.
  */
-import { mkdtempSync, writeFileSync } from 'node:fs';
+import { mkdtempSync, readdirSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { ConfigError, Rng } from '@tilewise/envs';
@@ -146,6 +146,21 @@ describe('sweep file: expansion', () => {
     expect(s.tasks).toHaveLength(4);
     expect((s.tasks[0]!.config.train as { stop: { steps: number } }).stop.steps).toBe(50);
     expect(labelOf({})).toBe('base');
+  });
+});
+
+describe('the example sweep files in configs/', () => {
+  it('validate and expand', () => {
+    const dir = join(__dirname, '..', '..', '..', 'configs');
+    const files = readdirSync(dir).filter((f) => /^sweep-.*\.ya?ml$/.test(f));
+    expect(files.length).toBeGreaterThan(0);
+    for (const f of files) {
+      const s = loadSweep(join(dir, f));
+      expect(s.tasks.length, f).toBe(s.settings.length * s.seeds.length);
+    }
+    const ks = loadSweep(join(dir, 'sweep-ks-l22-t4.yaml'));
+    expect(ks.tasks).toHaveLength(18);
+    expect(ks.rank).toEqual({ metric: 'dragVsOpposition', domain: 'train' });
   });
 });
 
