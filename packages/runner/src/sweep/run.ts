@@ -21,19 +21,13 @@ import { evaluateSource, openPolicySource } from '../commands/evaluate';
 import { parseRunConfig } from '../config';
 import { estimate, type Progress } from '../progress';
 import { readSummary, resumeRun, RUN_FILES, train, type TrainSummary } from '../trainer';
-import type { RunTask } from './spec';
+import type { RunIdentity, RunTask } from './spec';
 
 export const RUN_RECORD_FORMAT = 'tilewise-sweep-run/1';
 
 /** The result of one finished run (results/<id>.json; a queue job's return value). */
-export interface RunRecord {
+export interface RunRecord extends RunIdentity {
   readonly format: typeof RUN_RECORD_FORMAT;
-  readonly sweep: string;
-  readonly id: string;
-  readonly key: string;
-  readonly label: string;
-  readonly values: Readonly<Record<string, unknown>>;
-  readonly seed: number;
   /** Where the run directory is, on the machine that ran it. */
   readonly runDir: string;
   readonly host: string;

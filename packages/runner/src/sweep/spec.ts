@@ -180,16 +180,17 @@ export interface Setting {
   readonly config: Record<string, unknown>;
 }
 
-/** One run of the plan: what a worker needs, and nothing that lives only on the controller. */
-export interface RunTask {
-  readonly format: 'tilewise-sweep-task/1';
+/** What names a run: its sweep, its setting (key, label, values) and its seed. */
+export interface RunIdentity extends Pick<Setting, 'key' | 'label' | 'values'> {
   readonly sweep: string;
   /** "<setting key>-seed<seed>": the result's file name and (with the sweep name) the queue job id. */
   readonly id: string;
-  readonly key: string;
-  readonly label: string;
-  readonly values: Readonly<Record<string, unknown>>;
   readonly seed: number;
+}
+
+/** One run of the plan: what a worker needs, and nothing that lives only on the controller. */
+export interface RunTask extends RunIdentity {
+  readonly format: 'tilewise-sweep-task/1';
   /** Run directory relative to the sweep's runs directory: "<setting dir>/seed<seed>". */
   readonly runPath: string;
   /** The resolved run config with train.seed = seed. */
