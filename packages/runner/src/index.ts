@@ -28,3 +28,7 @@ export { ExternalEnv, externalEnvKind, parseExternalConfig, registerExternalEnv,
 export { runSolver, type SolverOptions } from './external/solver';
 export { parseAddress, formatAddress, type Address } from './wire/address';
 export { MSG, ERR, PROTOCOL_VERSION, RemoteError } from './wire/protocol';
+export { loadSweep, parseSweep, settingKey, RANK_METRICS, type Sweep, type Setting, type RunTask, type RankMetric } from './sweep/spec';
+export { executeRun, RUN_RECORD_FORMAT, type RunRecord, type RunOutcome } from './sweep/run';
+export { aggregate, writeAggregate, aggregateLines, AGGREGATE_FORMAT, AGGREGATE_FILES, type Aggregate, type SettingRow, type RunRow, type Stat } from './sweep/aggregate';
+export { runLocalPool, type PoolOptions, type PoolResult } from './sweep/pool';
