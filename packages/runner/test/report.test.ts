@@ -212,6 +212,26 @@ describe('tilewise report (several runs, sweeps, errors)', () => {
     expect(readJson(join(root, 'sweep-agg', 'report.json')).settings.map((x: any) => x.label)).toEqual(['b1', 'b2']);
   });
 
+  it('reads evaluation directories without a run (tilewise evaluate/transfer --out), and a run not yet evaluated', async () => {
+    const io = capture();
+    expect(await main(['report', join(ks1, 'evaluation'), '--out', join(root, 'eval-only'), '--no-svg', '-q'], io), io.errText()).toBe(EXIT_OK);
+    const r = readJson(join(root, 'eval-only', 'report.json'));
+    expect(r.domains.map((d: any) => d.label)).toEqual(['train', 'transfer-1']);
+    expect(r.figures.some((f: any) => f.id.startsWith('learning-'))).toBe(false);
+    expect(await main(['report', join(ks1, 'evaluation', 'transfer-1'), '--out', join(root, 'one-domain'), '--no-svg', '-q'], capture())).toBe(EXIT_OK);
+    expect(readJson(join(root, 'one-domain', 'report.json')).domains.map((d: any) => d.label)).toEqual(['transfer-1']);
+    // A run without evaluation data: learning curves only, and a warning that says how to evaluate.
+    const bare = join(root, 'bare-run');
+    mkdirSync(bare, { recursive: true });
+    for (const f of ['config.yaml', 'summary.json', 'log.jsonl']) copyFileSync(join(ks1, f), join(bare, f));
+    const io2 = capture();
+    expect(await main(['report', bare, '--no-svg', '-q'], io2), io2.errText()).toBe(EXIT_OK);
+    expect(io2.errText()).toMatch(/bare-run: no evaluation data yet \(tilewise evaluate .*bare-run\)/);
+    const b = readJson(join(bare, 'report', 'report.json'));
+    expect(b.domains).toEqual([]);
+    expect(b.figures.map((f: any) => f.id)).toEqual(['learning-return', 'learning-critic-loss', 'learning-validation']);
+  });
+
   it('bad inputs exit 2 with a message naming the file and what is wrong', async () => {
     const bad = join(root, 'bad');
     mkdirSync(bad, { recursive: true });
