@@ -74,7 +74,16 @@ const PANEL = { width: 200, height: 200 };
 function panels(rows: unknown[], order: readonly string[], layer: VlSpec[], o: { field?: string; dir?: 'column' | 'row'; width?: number; height?: number } = {}): VlSpec {
   return {
     data: { values: rows },
-    facet: { [o.dir ?? 'column']: { field: o.field ?? 'controller', type: 'nominal', title: null, sort: order } },
+    facet: {
+      [o.dir ?? 'column']: {
+        field: o.field ?? 'controller',
+        type: 'nominal',
+        title: null,
+        sort: order,
+        // Row panels get their name above them (beside them it would collide with the y axis title).
+        ...(o.dir === 'row' ? { header: { labelOrient: 'top', labelAngle: 0, labelAnchor: 'start', labelFontWeight: 'bold' } } : {}),
+      },
+    },
     spec: { width: o.width ?? PANEL.width, height: o.height ?? PANEL.height, layer },
   };
 }
@@ -93,7 +102,7 @@ function cellLayer(name: string, x: CellAxis, y: CellAxis, color: VlSpec, filter
   return { name, ...(filter ? { transform: [{ filter }] } : {}), mark: { type: 'rect' }, encoding: { x: axis(x), x2: { field: x.to }, y: axis(y), y2: { field: y.to }, color } };
 }
 
-function domainTitle(d: DomainView): string {
+export function domainTitle(d: DomainView): string {
   const e = d.env;
   if (d.kind === 'ks') return `${d.label}: KS L = ${e.length}, ${d.tiles} tiles`;
   if (d.kind === 'kolmogorov') return `${d.label}: Kolmogorov ${JSON.stringify(e.points)}, ${d.tiles} tiles`;
@@ -209,7 +218,7 @@ function curveFigure(
       transform: [{ filter: "datum.kind === 'curve'" }],
       mark: { type: 'line', point: rows.length < 80 ? { size: 18 } : false },
       encoding: {
-        x: { field: 'step', type: 'quantitative', title: 'environment steps' },
+        x: { field: 'step', type: 'quantitative', title: 'environment steps', axis: { format: '~s' } },
         y: { field: 'mean', type: 'quantitative', title: yTitle, scale: yScale },
         color: { ...color, legend: LINE_LEGEND },
         tooltip: [

@@ -6,7 +6,7 @@
  */
 import { readFileSync } from 'node:fs';
 import type { Spec as VegaSpec } from 'vega';
-import type { AllFigures, Figure } from './figures';
+import { domainTitle, type AllFigures, type Figure } from './figures';
 import type { Comparison, ControllerRow, QuadrantRow, ReportModel } from './model';
 import { bandWords } from './stats';
 
@@ -140,7 +140,7 @@ export function reportHtml(p: PageInput): string {
     const d = df.domain;
     const rows = p.rows.get(d.label) ?? [];
     const comps = p.comparisons.get(d.label) ?? [];
-    summary.push(`<h3>${escapeHtml(d.evalLabel === 'train' ? `Training domain${d.label !== 'train' ? ` ${d.label}` : ''}` : `Transfer domain ${d.label}`)}: ${escapeHtml(d.kind)}, ${d.tiles} tiles</h3>`);
+    summary.push(`<h3>${d.evalLabel === 'train' ? 'Training domain' : 'Transfer domain'} ${escapeHtml(domainTitle(d))}</h3>`);
     summary.push(controllerTable(d.dragName, rows));
     const seeds = rows.some((r) => r.interval === 'seeds');
     summary.push(
