@@ -21,11 +21,18 @@ import { PROCESSOR_ENV } from './queue';
 
 onParentGone(() => process.exit(1));
 
+const SAFE_NAME = /^[A-Za-z0-9][A-Za-z0-9._-]*$/;
+const SAFE_RUN_PATH = /^[A-Za-z0-9][A-Za-z0-9._=-]*\/seed\d+$/;
+
 export async function processRunJob(job: SandboxedJob<RunTask, RunRecord>, token?: string, signal?: AbortSignal): Promise<RunRecord> {
   const task = job.data;
   const runsDir = process.env[PROCESSOR_ENV.runsDir];
   if (!runsDir) throw new UnrecoverableError(`${PROCESSOR_ENV.runsDir} is not set (the sweep worker sets it)`);
   if (task?.format !== 'tilewise-sweep-task/1') throw new UnrecoverableError(`job ${job.id}: not a tilewise sweep run (format ${JSON.stringify(task?.format)})`);
+  // The run directory must stay under the runs directory whatever the job says.
+  if (!SAFE_NAME.test(task.sweep) || !SAFE_RUN_PATH.test(task.runPath)) {
+    throw new UnrecoverableError(`job ${job.id}: sweep ${JSON.stringify(task.sweep)} / run path ${JSON.stringify(task.runPath)} is not a sweep run directory`);
+  }
   const say = (l: string): void => void process.stderr.write(`[${job.id}] ${l}\n`);
   let lastProgress = 0;
   try {

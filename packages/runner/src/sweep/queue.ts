@@ -297,7 +297,6 @@ export async function startWorker(o: WorkerOptions): Promise<SweepWorker> {
     lockDuration: o.lockSeconds * 1000,
     stalledInterval: o.lockSeconds * 1000,
     maxStalledCount: o.maxStalls,
-    removeOnComplete: { count: 1_000_000 },
     useWorkerThreads: false,
     workerForkOptions: {
       env: {
