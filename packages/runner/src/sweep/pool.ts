@@ -119,7 +119,9 @@ export function runLocalPool(tasks: readonly RunTask[], o: PoolOptions): Promise
     };
 
     const spawn = (): Proc => {
-      const child = fork(ENTRY, [], { stdio: ['ignore', 'pipe', 'pipe', 'ipc'] });
+      // The entry registers its own TypeScript loader; an inspector flag would clash on its port.
+      const execArgv = process.execArgv.filter((a) => !a.startsWith('--inspect'));
+      const child = fork(ENTRY, [], { stdio: ['ignore', 'pipe', 'pipe', 'ipc'], execArgv });
       const p: Proc = { child, item: null, progress: null, outcome: null, logPath: null };
       const toLog = (b: Buffer): void => {
         if (p.logPath) appendFileSync(p.logPath, b);

@@ -26,7 +26,7 @@ import { ConfigError } from '@tilewise/envs';
 import { RUN_RECORD_FORMAT, type RunProgress, type RunRecord } from './run';
 import type { RunTask, Sweep } from './spec';
 import { readRecords, writeRecord } from './store';
-import { runningText, type RunningRun, type SweepCounts, type SweepView } from './view';
+import { runningText, statusText, type RunningRun, type SweepCounts, type SweepView } from './view';
 
 /** The queue all sweeps share unless --queue names another. */
 export const DEFAULT_QUEUE = 'tilewise-runs';
@@ -173,6 +173,8 @@ export interface QueueSnapshot {
   readonly failures: Map<string, string>;
   /** Records of the sweep's finished runs: read from outDir, or collected from completed jobs. */
   readonly records: Map<string, RunRecord>;
+  /** When the earliest of the sweep's jobs on the queue was added (ms since the epoch), if any is there. */
+  readonly enqueuedAt: number | null;
 }
 
 /**
@@ -185,10 +187,12 @@ export async function snapshot(queue: Queue, sweep: Sweep, outDir: string, o: { 
   const failures = new Map<string, string>();
   const running: RunningRun[] = [];
   let waiting = 0;
+  let enqueuedAt: number | null = null;
   for (const task of sweep.tasks) {
     if (records.has(task.id)) continue;
     const job = (await queue.getJob(jobId(task))) as Job<RunTask, RunRecord> | undefined;
     const state = job ? await job.getState() : 'unknown';
+    if (job && (enqueuedAt === null || job.timestamp < enqueuedAt)) enqueuedAt = job.timestamp;
     if (state === 'completed') {
       const rec = job!.returnvalue;
       if (!rec || rec.format !== RUN_RECORD_FORMAT || rec.key !== task.key || rec.seed !== task.seed) {
@@ -205,7 +209,7 @@ export async function snapshot(queue: Queue, sweep: Sweep, outDir: string, o: { 
   }
   const before = [...o.before].filter((id) => records.has(id)).length;
   const counts = { total: sweep.tasks.length - before, done: records.size - before, running: running.length, failed: failures.size, waiting };
-  return { counts, running, failures, records };
+  return { counts, running, failures, records, enqueuedAt };
 }
 
 /** Poll until every run of the sweep has completed or failed for good; returns the last snapshot. */
@@ -250,7 +254,8 @@ export async function statusLines(queue: Queue, sweep: Sweep | null, outDir: str
   if (sweep && outDir) {
     const s = await snapshot(queue, sweep, outDir, { store: false, before: new Set() });
     const k = s.counts;
-    lines.push(`sweep ${sweep.name}: ${k.done}/${k.total} runs done, ${k.running} running, ${k.failed} failed, ${k.waiting} waiting`);
+    const elapsed = s.enqueuedAt === null ? 0 : (Date.now() - s.enqueuedAt) / 1000;
+    lines.push(`sweep ${sweep.name}: ${statusText(k, s.running, elapsed)}${s.enqueuedAt === null ? '' : ' (since the first of its runs still on the queue was added)'}`);
     for (const r of s.running) lines.push(`  ${runningText(r)}`);
     for (const [id, why] of s.failures) lines.push(`  failed: ${id}: ${why}`);
   } else {
