@@ -5,7 +5,7 @@
  * random) once per distinct environment. Every number of the tables is computed here; the
  * figures (figures.ts) draw the same quantities.
  */
-import { fluctuationStats, meanWithCi, SpectralDerivative } from '@tilewise/envs';
+import { fluctuationStats, meanWithCi, SpectralDerivative, type FluctuationStats } from '@tilewise/envs';
 import { canonicalJson, type ControllerSeries, type ControllerSummary, type DomainData, type RunData, type SweepAggregate } from './data';
 import { boundShares, pairedDifference, rms, type BandKind, type BoundShares } from './stats';
 
@@ -416,16 +416,15 @@ export function fluctuationSamples(d: DomainView, c: ControllerView): Fluctuatio
   return { names, a: fa, b: fb, cls: Int32Array.from(cls), classes, snapshots };
 }
 
-export interface QuadrantRow {
+/**
+ * Quadrant statistics of one controller's fluctuation samples: `fluctuationStats`' samples,
+ * fractions (Q1 a > 0, b > 0; Q2 a < 0, b > 0; Q3 both < 0; Q4 a > 0, b < 0), each quadrant's
+ * contribution to <a b> (`stress`) and the correlation, with the rms of each component.
+ */
+export interface QuadrantRow extends Pick<FluctuationStats, 'samples' | 'fractions' | 'stress' | 'correlation'> {
   readonly controller: string;
   readonly names: readonly [string, string];
-  readonly samples: number;
   readonly snapshots: number;
-  /** Q1 (a > 0, b > 0), Q2 (a < 0, b > 0), Q3 (a < 0, b < 0), Q4 (a > 0, b < 0). */
-  readonly fractions: readonly [number, number, number, number];
-  /** Each quadrant's contribution to <a b>. */
-  readonly stress: readonly [number, number, number, number];
-  readonly correlation: number;
   readonly rmsA: number;
   readonly rmsB: number;
 }
