@@ -172,8 +172,13 @@ export const trainSchema = z
     checkpoint: z
       .strictObject({
         enabled: z.boolean().default(true).describe('Write checkpoints (default true; the env must support getState).'),
-        everySteps: z.number().int().nonnegative().default(5000).describe('Environment steps between checkpoints (0: not by steps) (default 5000).'),
-        everySeconds: z.number().nonnegative().finite().default(120).describe('Wall-clock seconds between checkpoints (0: not by time) (default 120).'),
+        everySteps: z.number().int().nonnegative().default(0).describe('Environment steps between checkpoints (0: not by steps) (default 0).'),
+        everySeconds: z
+          .number()
+          .nonnegative()
+          .finite()
+          .default(60)
+          .describe('Training seconds between checkpoints (0: not by time) (default 60; a KS L = 22 checkpoint with a full replay buffer is ~80 MB).'),
         keep: z.number().int().min(2).default(2).describe('Checkpoints kept; older ones are deleted after a new one is written (default 2).'),
       })
       .prefault({})

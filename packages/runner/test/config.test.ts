@@ -32,7 +32,7 @@ describe('run config', () => {
     expect(c.train.updatesPerStep).toBe(2);
     expect(c.train.stop).toEqual({ steps: null, seconds: 600, dragBelow: null, patience: null });
     expect(c.train.validation).toEqual({ every: 1000, episodes: 10, episodeLength: null, discardDecisions: null });
-    expect(c.train.checkpoint).toEqual({ enabled: true, everySteps: 5000, everySeconds: 120, keep: 2 });
+    expect(c.train.checkpoint).toEqual({ enabled: true, everySteps: 0, everySeconds: 60, keep: 2 });
     expect(c.agent.critics).toBe(2); // td3 preset
     expect(c.agent.actor.hidden).toEqual([256, 256]);
     expect(c.evaluation.transfer).toEqual([]);
