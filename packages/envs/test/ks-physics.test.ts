@@ -4,7 +4,7 @@
  */
 import { describe, expect, it } from 'vitest';
 import { KsSolver, seedKsNoise } from '../src/ks';
-import { antisymmetricEquilibria, estimateLyapunov } from '../src/ks-analysis';
+import { antisymmetricEquilibria, estimateLyapunov, travellingWaves } from '../src/ks-analysis';
 
 /** Kassam & Trefethen (2005), SIAM J. Sci. Comput. 26(4), program kursiv.m: N = 128 on [0, 32 pi). */
 function kassamTrefethen(h: number, tEnd: number, n = 128): KsSolver {
@@ -208,5 +208,23 @@ describe('equilibria at L = 22 (Cvitanovic, Davidchack & Siminos 2010)', () => {
     for (const e of eq) expect(e.residual).toBeLessThan(1e-8);
     // Only the trivial state and E1-E3 exist in this subspace at L = 22 (among those found).
     expect(energies.length).toBeLessThanOrEqual(4);
+  });
+});
+
+describe('travelling waves at L = 22 (Cvitanovic, Davidchack & Siminos 2010)', () => {
+  it('Newton with the speed as an unknown finds TW1 and TW2 with the published speeds 0.73699 and 0.34954', () => {
+    // Speeds quoted in the issue from that paper (5 decimals). Two seeds of starting states must
+    // each find both waves: the search is not tuned to one lucky start.
+    for (const seed of [1, 2]) {
+      const tw = travellingWaves({ length: 22, points: 64, starts: 100, seed });
+      for (const published of [0.73699, 0.34954]) {
+        const best = tw.reduce((a, w) => (Math.abs(w.speed - published) < Math.abs(a - published) ? w.speed : a), Infinity);
+        expect(Math.abs(best - published)).toBeLessThan(6e-6); // the published 5 decimals
+      }
+      for (const w of tw) {
+        expect(w.residual).toBeLessThan(1e-8);
+        expect(w.energy).toBeGreaterThan(1e-3); // the zero state (a "wave" of any speed) is excluded
+      }
+    }
   });
 });
