@@ -19,6 +19,14 @@ describe('Kolmogorov surrogate through the runner', () => {
     expect(c.env.config.kind).toBe('kolmogorov');
     expect(c.env.config.tiles).toEqual([4, 2]);
     expect(c.env.config.points).toEqual([64, 64]);
+    expect(c.train.copies * (c.env.config.tiles as number[]).reduce((a, b) => a * b, 1)).toBe(64); // 64 tile transitions per step, as the config says
+    // The transfer box: twice as wide on the same grid spacing, 16 tiles of the same size.
+    const w = loadRunConfig('configs/kolmogorov-re40-a2-t16.yaml');
+    expect(w.env.config.kind).toBe('kolmogorov');
+    expect(w.env.config.tiles).toEqual([8, 2]);
+    expect(w.env.config.points).toEqual([128, 64]);
+    const tileWidth = (x: typeof c): number => (2 * Math.PI * (x.env.config.aspect as number)) / (x.env.config.tiles as number[])[0]!;
+    expect(tileWidth(w)).toBe(tileWidth(c));
   });
 
   it('baselines runs end to end on a tiny Kolmogorov config and is reproducible (smoke test)', async () => {
