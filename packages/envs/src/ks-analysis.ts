@@ -128,48 +128,17 @@ export function antisymmetricEquilibria(o: EquilibriumSearchOptions): Equilibriu
     sim.fft.squareOfSignal(vr, vi, wr, wi);
     for (let j = 1; j < K; j++) out[j - 1] = sim.linear[j]! * vi[j]! - 0.5 * k[j]! * wr[j]!;
   };
-  const norm = (x: Float64Array): number => Math.sqrt(x.reduce((s, v) => s + v * v, 0));
   const rng = new Rng(`ks-equilibria/${o.seed}`);
   const found: Equilibrium[] = [];
-  const g = new Float64Array(m);
-  const g2 = new Float64Array(m);
-  const J = new Float64Array(m * m);
   for (let start = 0; start < o.starts; start++) {
     sim.vRe.fill(0);
     sim.vIm.fill(0);
     for (let j = 1; j <= 4; j++) sim.vIm[j] = 0.5 * n * rng.normal();
     const steps = 20 * (1 + (start % 10));
     for (let i = 0; i < steps; i++) sim.step();
-    let b = new Float64Array(m);
-    for (let j = 1; j < K; j++) b[j - 1] = sim.vIm[j]!;
-    let converged = false;
-    let r = Infinity;
-    for (let it = 0; it < 50; it++) {
-      G(b, g);
-      r = norm(g);
-      if (r < 1e-9 * n) {
-        converged = true;
-        break;
-      }
-      for (let c = 0; c < m; c++) {
-        const h = 1e-7 * Math.max(1, Math.abs(b[c]!));
-        const bp = b.slice();
-        bp[c]! += h;
-        G(bp, g2);
-        for (let row = 0; row < m; row++) J[row * m + c] = (g2[row]! - g[row]!) / h;
-      }
-      const d = solveDense(J, g, m);
-      let t = 1;
-      for (let ls = 0; ls < 30; ls++) {
-        const bn = b.map((v, i) => v - t * d[i]!);
-        G(bn, g2);
-        if (norm(g2) < r) {
-          b = bn;
-          break;
-        }
-        t /= 2;
-      }
-    }
+    const b0 = new Float64Array(m);
+    for (let j = 1; j < K; j++) b0[j - 1] = sim.vIm[j]!;
+    const { x: b, residual: r, converged } = dampedNewton(G, b0, 1e-9 * n, 50);
     if (!converged) continue;
     let e = 0;
     for (let j = 0; j < m; j++) e += 2 * b[j]! ** 2; // Parseval over +-k
@@ -177,6 +146,49 @@ export function antisymmetricEquilibria(o: EquilibriumSearchOptions): Equilibriu
     if (!found.some((f) => Math.abs(f.energy - energy) < 1e-8)) found.push({ energy, residual: r / n, coefficients: b });
   }
   return found.sort((a, b) => a.energy - b.energy);
+}
+
+/**
+ * Damped Newton for F(x) = 0 (F maps R^m to R^m): finite-difference Jacobian (forward
+ * differences, step 1e-7 max(1, |x_c|)), Gaussian elimination, the step halved up to 30 times
+ * until |F| decreases. Stops when |F| < tol (converged), after maxIterations, or when no halved
+ * step decreases |F| (a stalled start: it would repeat the same failed step).
+ */
+function dampedNewton(F: (x: Float64Array, out: Float64Array) => void, x0: Float64Array, tol: number, maxIterations: number): { x: Float64Array; residual: number; converged: boolean } {
+  const m = x0.length;
+  const norm = (v: Float64Array): number => Math.sqrt(v.reduce((s, e) => s + e * e, 0));
+  const g = new Float64Array(m);
+  const g2 = new Float64Array(m);
+  const J = new Float64Array(m * m);
+  let x = x0;
+  let r = Infinity;
+  for (let it = 0; it < maxIterations; it++) {
+    F(x, g);
+    r = norm(g);
+    if (r < tol) return { x, residual: r, converged: true };
+    for (let col = 0; col < m; col++) {
+      const h = 1e-7 * Math.max(1, Math.abs(x[col]!));
+      const xp = x.slice();
+      xp[col]! += h;
+      F(xp, g2);
+      for (let row = 0; row < m; row++) J[row * m + col] = (g2[row]! - g[row]!) / h;
+    }
+    const d = solveDense(J, g, m);
+    let t = 1;
+    let moved = false;
+    for (let ls = 0; ls < 30; ls++) {
+      const xn = x.map((v, i) => v - t * d[i]!);
+      F(xn, g2);
+      if (norm(g2) < r) {
+        x = xn;
+        moved = true;
+        break;
+      }
+      t /= 2;
+    }
+    if (!moved) break;
+  }
+  return { x, residual: r, converged: false };
 }
 
 /** Solve A x = rhs (A dense row-major m x m, copied) by Gaussian elimination with partial pivoting. */
@@ -282,8 +294,6 @@ export function travellingWaves(o: TravellingWaveSearchOptions): TravellingWave[
       out[m + j - 1] = fi[j]! + c * q[j]! * vr[j]!;
     }
   };
-  const norm = (x: Float64Array): number => Math.sqrt(x.reduce((s, v) => s + v * v, 0));
-
   // Starting states: seeded random low-mode states advanced briefly in time, as for the equilibria.
   const rng = new Rng(`ks-travelling-waves/${o.seed}`);
   const candidates: Float64Array[] = [];
@@ -325,43 +335,8 @@ export function travellingWaves(o: TravellingWaveSearchOptions): TravellingWave[
   }
 
   const found: TravellingWave[] = [];
-  const g = new Float64Array(2 * m);
-  const g2 = new Float64Array(2 * m);
-  const N = 2 * m;
-  const J = new Float64Array(N * N);
   for (const start of candidates) {
-    let x = start;
-    let converged = false;
-    let r = Infinity;
-    for (let it = 0; it < 60; it++) {
-      R(x, g);
-      r = norm(g);
-      if (r < 1e-9 * n) {
-        converged = true;
-        break;
-      }
-      for (let col = 0; col < N; col++) {
-        const h = 1e-7 * Math.max(1, Math.abs(x[col]!));
-        const xp = x.slice();
-        xp[col]! += h;
-        R(xp, g2);
-        for (let row = 0; row < N; row++) J[row * N + col] = (g2[row]! - g[row]!) / h;
-      }
-      const d = solveDense(J, g, N);
-      let t = 1;
-      let moved = false;
-      for (let ls = 0; ls < 30; ls++) {
-        const xn = x.map((v, i) => v - t * d[i]!);
-        R(xn, g2);
-        if (norm(g2) < r) {
-          x = xn;
-          moved = true;
-          break;
-        }
-        t /= 2;
-      }
-      if (!moved) break;
-    }
+    const { x, residual: r, converged } = dampedNewton(R, start, 1e-9 * n, 60);
     const c = x[2 * m - 1]!;
     if (!converged || !(Math.abs(c) > 1e-6)) continue;
     unpack(x);
