@@ -27,11 +27,8 @@ import { createNetBackend } from '../packages/agent/src/net/select';
 import type { TransposeMode } from '../packages/agent/src/net/tfjs';
 import { bestTime as time, opOverheadUs, profileKernels, transposedProduct } from '../packages/agent/bench/tfjs-probes';
 import type { Adam, AdamConfig, Mlp, MlpSpec, NetBackend } from '../packages/agent/src/net/types';
+import { option } from './options';
 
-function option(name: string, fallback: string): string {
-  const i = process.argv.indexOf(`--${name}`);
-  return i >= 0 && process.argv[i + 1] ? process.argv[i + 1]! : fallback;
-}
 const quick = process.argv.includes('--quick');
 const backendChoice = option('backend', 'auto') as BackendChoice;
 if (!BACKEND_CHOICES.includes(backendChoice)) throw new Error(`--backend: expected one of ${BACKEND_CHOICES.join(', ')}, got ${backendChoice}`);

@@ -29,11 +29,8 @@ import { exportPolicy, PolicyEvaluator } from '../packages/runner/src/export';
 import { loadOnnxRuntime } from '../packages/runner/src/export/onnx-runtime';
 import { PolicyClient } from '../packages/runner/src/serve/client';
 import { parseAddress } from '../packages/runner/src/wire/address';
+import { option } from './options';
 
-function option(name: string, fallback: string): string {
-  const i = process.argv.indexOf(`--${name}`);
-  return i >= 0 && process.argv[i + 1] ? process.argv[i + 1]! : fallback;
-}
 const seconds = Number(option('seconds', '2'));
 const batch = Number(option('batch', '64'));
 if (!(seconds > 0)) throw new Error(`--seconds: expected a positive number, got ${option('seconds', '')}`);

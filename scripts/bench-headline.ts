@@ -28,11 +28,8 @@ import { loadRunConfig } from '../packages/runner/src/config';
 import { evaluateSource, openPolicySource } from '../packages/runner/src/commands/evaluate';
 import { createProgress } from '../packages/runner/src/progress';
 import { train } from '../packages/runner/src/trainer';
+import { option } from './options';
 
-function option(name: string, fallback: string): string {
-  const i = process.argv.indexOf(`--${name}`);
-  return i >= 0 && process.argv[i + 1] ? process.argv[i + 1]! : fallback;
-}
 const configPath = option('config', 'configs/ks-l22-t4.yaml');
 const seeds = option('seeds', '1,2,3').split(',').map(Number);
 const seconds = Number(option('seconds', '600'));

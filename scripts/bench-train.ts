@@ -22,11 +22,8 @@ import { buildEnv } from '../packages/runner/src/env-build';
 import { EnvRunner } from '../packages/runner/src/env-runner';
 import { loadRunConfig, type RunConfig } from '../packages/runner/src/config';
 import { train } from '../packages/runner/src/trainer';
+import { option } from './options';
 
-function option(name: string, fallback: string): string {
-  const i = process.argv.indexOf(`--${name}`);
-  return i >= 0 && process.argv[i + 1] ? process.argv[i + 1]! : fallback;
-}
 const configPath = option('config', 'configs/ks-l22-t4.yaml');
 const steps = Number(option('steps', '3000'));
 const rounds = Number(option('rounds', '3'));
